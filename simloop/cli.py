@@ -1,0 +1,192 @@
+"""Command line: parse, load, call, write. No mathematics here.
+
+Exit status: 0 done, 2 bad input (the message names the key), 1 anything else (a message, no
+traceback unless --debug).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+import traceback
+from importlib import resources
+from pathlib import Path
+
+from simloop.errors import SimloopError, SpecError
+
+DEMO_SPEC = "demo-loop.toml"
+
+
+class _Progress:
+    """tqdm on a terminal; on a log, one line per finished solve at most every 10 s."""
+
+    def __init__(self, quiet: bool = False):
+        self.quiet = quiet
+        self.tty = sys.stderr.isatty()
+        self.bar = None
+        self.stage = None
+        self.last = 0.0
+
+    def __call__(self, stage: str, done: int, total: int):
+        if self.quiet:
+            return
+        if self.tty:
+            from tqdm import tqdm
+
+            if stage != self.stage:
+                self.close()
+                self.bar = tqdm(total=total, desc=f"MoM {stage}", unit="freq", leave=False)
+                self.stage = stage
+            self.bar.n = done
+            self.bar.refresh()
+            return
+        now = time.monotonic()
+        if done == total or now - self.last > 10:
+            print(f"[simloop] {stage} solves: {done}/{total}", file=sys.stderr, flush=True)
+            self.last = now
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+
+
+def _cache(args):
+    from simloop.solve import SolveCache
+
+    if args.no_cache:
+        return None
+    root = os.environ.get("SIMLOOP_CACHE") or str(Path("results") / ".cache")
+    return SolveCache(root)
+
+
+def _out_dir(args, spec) -> Path:
+    return Path(args.out) if args.out else Path("results") / spec.name
+
+
+def cmd_check(args) -> int:
+    from simloop.impedance import prepare
+    from simloop.mesh import C0
+    from simloop.spec import load
+
+    spec = load(args.spec)
+    geom, mesh, rules = prepare(spec)
+    lam_lo, lam_hi = C0 / spec.sweep.start_hz, C0 / spec.sweep.stop_hz
+    print(f"{spec.name}: {spec.winding.turns} turns {spec.winding.style}, "
+          f"{spec.frame.width_m * 1e3:.0f} × {spec.frame.height_m * 1e3:.0f} mm, "
+          f"pitch {spec.winding.pitch_m * 1e3:.2f} mm, wire radius {spec.wire.radius_m * 1e3:.3f} mm, "
+          f"taps at {', '.join(map(str, spec.taps.turns))} turns")
+    print(f"wire to cut: winding {geom.winding_length_m:.3f} m + leads {geom.lead_length_m:.3f} m "
+          f"= {geom.wire_length_m:.3f} m")
+    print(f"mesh ({mesh.quality}): {mesh.n_segments} segments on {mesh.segments.size} wires; "
+          f"segment {mesh.shortest_m * 1e3:.2f}–{mesh.longest_m * 1e3:.2f} mm "
+          f"(target {mesh.target_m * 1e3:.2f} mm)")
+    print(f"  = {mesh.shortest_m / lam_lo:.2e}–{mesh.longest_m / lam_hi:.2e} λ over the sweep, "
+          f"{mesh.winding_segment_m / spec.winding.pitch_m:.2f} × pitch, "
+          f"{mesh.shortest_m / spec.wire.radius_m:.1f}–{mesh.longest_m / spec.wire.radius_m:.1f} × radius")
+    width = max(len(r.name) for r in rules)
+    for r in rules:
+        print(f"  [{r.status:>4}] {r.name:<{width}}  {r.detail}")
+    return 0
+
+
+def cmd_sweep(args, spec=None) -> int:
+    from simloop.impedance import run_sweep
+    from simloop.report import write_sweep
+    from simloop.spec import load
+
+    spec = spec or load(args.spec)
+    out = _out_dir(args, spec)
+    progress = _Progress(args.quiet)
+    try:
+        result = run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                           direct=getattr(args, "direct", False))
+    finally:
+        progress.close()
+    paths = write_sweep(result, out, z0=args.z0)
+    if not args.quiet:
+        for i, n in enumerate(result.tap_turns):
+            srf = result.self_resonance_hz[i]
+            ok = int(result.reliable[:, i].sum())
+            print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error:.1%}, "
+                  f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
+        n_mom = int((result.source == "mom").sum())
+        print(f"{n_mom} points by direct MoM, {result.source.size - n_mom} from the model fitted at "
+              f"{', '.join(f'{f / 1e6:.3f}' for f in result.model.fit_hz)} MHz")
+        if result.window_note:
+            print(f"note: {result.window_note}")
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
+def cmd_demo(args) -> int:
+    from simloop.spec import loads
+
+    text = resources.files("simloop").joinpath("data", DEMO_SPEC).read_text()
+    spec = loads(text, source=DEMO_SPEC)
+    args.out = args.out or str(Path("results") / "demo")
+    return cmd_sweep(args, spec=spec)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="simloop", description=__doc__.splitlines()[0])
+    parser.add_argument("--debug", action="store_true", help="show tracebacks")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    def common(p, spec=True):
+        if spec:
+            p.add_argument("spec", help="spec file (TOML)")
+        p.add_argument("--out", help="output folder (default results/<name>/)")
+        p.add_argument("--workers", type=int, default=None, help="solver processes (default: all CPUs)")
+        p.add_argument("--z0", type=float, default=50.0, help="Touchstone reference impedance [Ω]")
+        p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
+        p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    p = sub.add_parser("check", help="build the mesh and print the mesh report")
+    p.add_argument("spec")
+    p.set_defaults(func=cmd_check)
+    p = sub.add_parser("sweep", help="tap impedances over the sweep; JSON, CSV, Touchstone, plot")
+    common(p)
+    p.add_argument("--direct", action="store_true",
+                   help="solve every point directly, below the breakdown floor too (flagged unreliable)")
+    p.set_defaults(func=cmd_sweep)
+    p = sub.add_parser("demo", help="run the bundled demo loop into results/demo/")
+    common(p, spec=False)
+    p.set_defaults(func=cmd_demo)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        if getattr(args, "z0", 50.0) <= 0:
+            raise SpecError("--z0", f"{args.z0} must be > 0 (reference impedance in ohms)")
+        if getattr(args, "workers", None) is not None and args.workers < 1:
+            raise SpecError("--workers", f"{args.workers} must be ≥ 1")
+        return args.func(args)
+    except SpecError as exc:
+        print(f"simloop: bad input\n{exc}", file=sys.stderr)
+        if args.debug:
+            traceback.print_exc()
+        return 2
+    except SimloopError as exc:
+        print(f"simloop: {exc}", file=sys.stderr)
+        if args.debug:
+            traceback.print_exc()
+        return 1
+    except KeyboardInterrupt:
+        print("simloop: interrupted; solved frequencies are kept in the cache", file=sys.stderr)
+        return 130
+    except Exception as exc:  # noqa: BLE001 - the CLI promises no traceback without --debug
+        print(f"simloop: unexpected error: {type(exc).__name__}: {exc} (run with --debug for details)",
+              file=sys.stderr)
+        if args.debug:
+            traceback.print_exc()
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

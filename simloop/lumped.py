@@ -1,0 +1,175 @@
+r"""Physical model of a multi-port loop fitted to MoM solves, and its evaluation anywhere in the band.
+
+Below its self-resonance a tapped loop is, port for port, a lossy inductance matrix shunted by a
+capacitance matrix:
+
+.. math:: Y(\omega) = \left(R_s(\omega) + j\omega L_0\right)^{-1} + j\omega C
+
+With the loss neglected in the imaginary part (its effect there is of order (R/ωL)² ≈ 1e-5),
+
+.. math:: \omega\,\mathrm{Im}\,Y(\omega) = -L_0^{-1} + \omega^2 C,
+
+linear in ω² element by element: the matrix form of the one-port rule 1/L_app = 1/L0 − ω²C. The
+series resistance is recovered by removing the shunt capacitance, R_s = Re (Y − jωC)⁻¹, and fitted
+with the frequency laws of its two parts: conductor loss ∝ the exact skin-effect ratio of the wire
+and radiation resistance ∝ f⁴ (small-loop law).
+
+Fitting where the MoM is valid (segments ≥ 7e-5 λ and f ≲ 0.6 × self-resonance) and evaluating
+down to the bottom of the MW band sidesteps the low-frequency breakdown: the model becomes *more*
+exact as ω → 0, where Z → R + jωL0.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import brentq
+
+
+
+
+@dataclass(frozen=True)
+class LoopModel:
+    """Fitted lumped model of a k-port loop.
+
+    Attributes
+    ----------
+    inductance_h : ndarray, shape (k, k)
+        Low-frequency inductance matrix L0 (open-circuit, other ports open). [H]
+    capacitance_f : ndarray, shape (k, k)
+        Shunt capacitance matrix C. [F]
+    loss_coefficients : ndarray, shape (2, k, k)
+        R_s = a·g(f) + b·(f/f_ref)⁴; a multiplies the skin-effect ratio g, b the radiation law. [Ω]
+    reference_hz : float
+        f_ref of the radiation term. [Hz]
+    fit_hz : ndarray
+        Frequencies the model was fitted on. [Hz]
+    fit_residual : float
+        Largest relative residual of ω·Im Y over the fit points (diagonal elements). [-]
+    extrapolation_spread : float
+        Largest relative change of the diagonal of L0 when an ω⁴ term is added to the fit
+        (0 with fewer than four fit points): how much the fit's form matters. [-]
+    """
+
+    inductance_h: np.ndarray
+    capacitance_f: np.ndarray
+    loss_coefficients: np.ndarray
+    reference_hz: float
+    wire_radius_m: float
+    resistivity_ohm_m: float | None
+    fit_hz: np.ndarray
+    fit_residual: float
+    extrapolation_spread: float
+
+    @property
+    def ports(self) -> int:
+        return self.inductance_h.shape[0]
+
+    def series_resistance(self, frequency_hz) -> np.ndarray:
+        """R_s(f), shape (n, k, k). [Ω]"""
+        f = np.atleast_1d(np.asarray(frequency_hz, dtype=float))
+        g = _skin_shape(f, self.wire_radius_m, self.resistivity_ohm_m)
+        rad = (f / self.reference_hz) ** 4
+        a, b = self.loss_coefficients
+        return g[:, None, None] * a + rad[:, None, None] * b
+
+    def z(self, frequency_hz, lossless: bool = False) -> np.ndarray:
+        """Open-circuit impedance matrix, shape (n, k, k). [Ω]"""
+        f = np.atleast_1d(np.asarray(frequency_hz, dtype=float))
+        w = 2 * np.pi * f
+        zs = 1j * w[:, None, None] * self.inductance_h
+        if not lossless:
+            zs = zs + self.series_resistance(f)
+        y = np.linalg.inv(zs) + 1j * w[:, None, None] * self.capacitance_f
+        return np.linalg.inv(y)
+
+    def self_resonance_hz(self, port: int, f_max_hz: float) -> float | None:
+        """First parallel resonance seen at ``port`` with the others open (pole of Im Z_ii). [Hz]
+
+        The lossless model is scanned up to ``f_max_hz``; None if no resonance lies below it.
+        """
+        grid = np.geomspace(1e3, f_max_hz, 4000)
+        x = self.z(grid, lossless=True)[:, port, port].imag
+        flips = np.flatnonzero((x[:-1] > 0) & (x[1:] < 0))
+        if flips.size == 0:
+            return None
+        i = flips[0]
+
+        def admittance(f):  # continuous through the pole: Im(1/Z) goes from − to +
+            return (1.0 / self.z([f], lossless=True)[0, port, port]).imag
+
+        return float(brentq(admittance, grid[i], grid[i + 1], xtol=1e-6 * grid[i]))
+
+
+def _skin_shape(frequency_hz, radius_m, resistivity_ohm_m):
+    if resistivity_ohm_m is None:
+        return np.zeros_like(np.asarray(frequency_hz, dtype=float))
+    from simloop import reference
+
+    return reference.ac_resistance_ratio_round_wire(radius_m, np.asarray(frequency_hz, dtype=float),
+                                                    resistivity_ohm_m)
+
+
+def fit_loop_model(frequency_hz, y, wire_radius_m: float, resistivity_ohm_m: float | None) -> LoopModel:
+    """Fit :class:`LoopModel` to short-circuit admittance matrices.
+
+    Parameters
+    ----------
+    frequency_hz : array_like, shape (n,)
+        Fit frequencies, n ≥ 2, all below about 0.6 × the lowest self-resonance. [Hz]
+    y : array_like, shape (n, k, k)
+        Reciprocal admittance matrices from the MoM. [S]
+    wire_radius_m : float
+    resistivity_ohm_m : float or None
+        None for a lossless wire (then all resistance is radiation).
+    """
+    f = np.asarray(frequency_hz, dtype=float)
+    y = np.asarray(y, dtype=complex)
+    if f.size < 2:
+        raise ValueError("the loop model needs at least two fit frequencies")
+    w = 2 * np.pi * f
+    k = y.shape[1]
+    lhs = (w[:, None, None] * y.imag).reshape(f.size, -1)  # ω Im Y, one column per element
+    scale = w.max() ** 2
+    basis2 = np.column_stack([np.ones_like(w), (w**2) / scale])
+    coef2, *_ = np.linalg.lstsq(basis2, lhs, rcond=None)
+    gamma = -coef2[0].reshape(k, k)
+    cap = (coef2[1] / scale).reshape(k, k)
+    gamma = 0.5 * (gamma + gamma.T)
+    cap = 0.5 * (cap + cap.T)
+    l0 = np.linalg.inv(gamma)
+    fitted = basis2 @ coef2
+    diag = np.ravel_multi_index((np.arange(k), np.arange(k)), (k, k))
+    residual = float(np.max(np.abs(fitted[:, diag] - lhs[:, diag]) / np.abs(lhs[:, diag])))
+    spread = 0.0
+    if f.size >= 4:
+        basis3 = np.column_stack([basis2, (w**4) / scale**2])
+        coef3, *_ = np.linalg.lstsq(basis3, lhs, rcond=None)
+        l0_alt = np.linalg.inv(-0.5 * (coef3[0].reshape(k, k) + coef3[0].reshape(k, k).T))
+        spread = float(np.max(np.abs(np.diag(l0_alt) - np.diag(l0)) / np.diag(l0)))
+
+    # Series resistance with the shunt capacitance removed, fitted to its two frequency laws.
+    zs = np.linalg.inv(y - 1j * w[:, None, None] * cap)
+    rs = zs.real.reshape(f.size, -1)
+    f_ref = float(f.max())
+    columns = [(f / f_ref) ** 4]
+    if resistivity_ohm_m is not None:
+        columns.insert(0, _skin_shape(f, wire_radius_m, resistivity_ohm_m))
+    basis_r = np.column_stack(columns)
+    coef_r, *_ = np.linalg.lstsq(basis_r, rs, rcond=None)
+    if resistivity_ohm_m is None:
+        coef_r = np.vstack([np.zeros_like(coef_r[0]), coef_r[0]])
+    loss = coef_r.reshape(2, k, k)
+    loss = 0.5 * (loss + loss.transpose(0, 2, 1))
+    return LoopModel(
+        inductance_h=l0,
+        capacitance_f=cap,
+        loss_coefficients=loss,
+        reference_hz=f_ref,
+        wire_radius_m=float(wire_radius_m),
+        resistivity_ohm_m=resistivity_ohm_m,
+        fit_hz=f,
+        fit_residual=residual,
+        extrapolation_spread=spread,
+    )
