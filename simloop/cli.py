@@ -92,31 +92,74 @@ def cmd_check(args) -> int:
     return 0
 
 
-def cmd_sweep(args, spec=None) -> int:
+def _run_sweep(args, spec):
     from simloop.impedance import run_sweep
+
+    progress = _Progress(args.quiet)
+    try:
+        return run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                         direct=getattr(args, "direct", False))
+    finally:
+        progress.close()
+
+
+def cmd_sweep(args, spec=None) -> int:
     from simloop.report import write_sweep
     from simloop.spec import load
 
     spec = spec or load(args.spec)
     out = _out_dir(args, spec)
-    progress = _Progress(args.quiet)
-    try:
-        result = run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
-                           direct=getattr(args, "direct", False))
-    finally:
-        progress.close()
+    result = _run_sweep(args, spec)
     paths = write_sweep(result, out, z0=args.z0)
     if not args.quiet:
         for i, n in enumerate(result.tap_turns):
             srf = result.self_resonance_hz[i]
             ok = int(result.reliable[:, i].sum())
-            print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error:.1%}, "
+            print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error[i]:.1%} "
+                  f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH), "
                   f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
         n_mom = int((result.source == "mom").sum())
         print(f"{n_mom} points by direct MoM, {result.source.size - n_mom} from the model fitted at "
               f"{', '.join(f'{f / 1e6:.3f}' for f in result.model.fit_hz)} MHz")
         if result.window_note:
             print(f"note: {result.window_note}")
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
+def cmd_tune(args, spec=None, sweep=None) -> int:
+    from simloop.report_tune import format_tune_summary, write_tune
+    from simloop.spec import load
+    from simloop.tuning import run_tune
+
+    spec = spec or load(args.spec)
+    out = _out_dir(args, spec)
+    sweep = sweep or _run_sweep(args, spec)
+    result = run_tune(spec, sweep, band=args.band, field_v_per_m=args.field)
+    paths = write_tune(result, out)
+    if not args.quiet:
+        print(format_tune_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
+def cmd_validate(args, spec=None, sweep=None) -> int:
+    from simloop.report_validate import format_validate_table, write_validate
+    from simloop.spec import load
+    from simloop.validation import run_validate
+
+    spec = spec or load(args.spec)
+    out = _out_dir(args, spec)
+    sweep = sweep or _run_sweep(args, spec)
+    progress = _Progress(args.quiet)
+    try:
+        result = run_validate(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress,
+                              convergence=not args.no_convergence)
+    finally:
+        progress.close()
+    paths = write_validate(result, out)
+    if not args.quiet:
+        print(format_validate_table(result))
         print(f"wrote {len(paths)} files to {out}/")
     return 0
 
@@ -152,6 +195,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--direct", action="store_true",
                    help="solve every point directly, below the breakdown floor too (flagged unreliable)")
     p.set_defaults(func=cmd_sweep)
+    p = sub.add_parser("tune", help="band coverage per tap, channel tuning chart, bandwidth, tuner voltage")
+    common(p)
+    p.add_argument("--band", default="itu-1",
+                   help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
+    p.add_argument("--field", type=float, default=1e-3,
+                   help="incident field strength for the tuner voltage [V/m] (default 1 mV/m)")
+    p.set_defaults(func=cmd_tune)
+    p = sub.add_parser("validate", help="MoM against handbook formulas and the quasi-static model")
+    common(p)
+    p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
+    p.set_defaults(func=cmd_validate)
     p = sub.add_parser("demo", help="run the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)

@@ -26,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq
 
+from simloop import reference
+
 
 
 
@@ -74,13 +76,19 @@ class LoopModel:
         a, b = self.loss_coefficients
         return g[:, None, None] * a + rad[:, None, None] * b
 
-    def z(self, frequency_hz, lossless: bool = False) -> np.ndarray:
-        """Open-circuit impedance matrix, shape (n, k, k). [Ω]"""
+    def z(self, frequency_hz, lossless: bool = False, extra_series_ohm=None) -> np.ndarray:
+        """Open-circuit impedance matrix, shape (n, k, k). [Ω]
+
+        ``extra_series_ohm`` (shape (n, k, k)) adds series loss the MoM does not model, such as
+        the proximity effect (:func:`simloop.losses.proximity_resistance`).
+        """
         f = np.atleast_1d(np.asarray(frequency_hz, dtype=float))
         w = 2 * np.pi * f
         zs = 1j * w[:, None, None] * self.inductance_h
         if not lossless:
             zs = zs + self.series_resistance(f)
+        if extra_series_ohm is not None:
+            zs = zs + np.asarray(extra_series_ohm)
         y = np.linalg.inv(zs) + 1j * w[:, None, None] * self.capacitance_f
         return np.linalg.inv(y)
 
@@ -105,8 +113,6 @@ class LoopModel:
 def _skin_shape(frequency_hz, radius_m, resistivity_ohm_m):
     if resistivity_ohm_m is None:
         return np.zeros_like(np.asarray(frequency_hz, dtype=float))
-    from simloop import reference
-
     return reference.ac_resistance_ratio_round_wire(radius_m, np.asarray(frequency_hz, dtype=float),
                                                     resistivity_ohm_m)
 
