@@ -302,23 +302,35 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     model = fit_loop_model(ok, np.array([solved[f].y for f in ok]), geom.wire_radius_m, resistivity)
     srf = _lowest_resonance(model, 40 * f7)
 
-    # 2. The fit window.
-    f_hi = WINDOW_TOP * srf if srf is not None else 2.5 * f7
-    f_lo = f7
-    if f_lo > f_hi / 1.3:
-        f_lo = max(f5, f_hi / 1.3)
+    # 2. The fit window, moved once more if the fitted resonance lands below the first guess.
+    for _ in range(3):
+        f_hi = WINDOW_TOP * srf if srf is not None else 1.6 * f7
+        f_lo = f7
         if f_lo > f_hi / 1.3:
-            f_hi = 1.3 * f_lo
-            note = (f"fit window {f_lo / 1e6:.3f}–{f_hi / 1e6:.3f} MHz reaches above "
-                    f"{WINDOW_TOP} × self-resonance; model points are less certain")
-        elif not note:
-            note = "floor relaxed towards 5e-5 λ to fit below 0.6 × self-resonance"
-    window = list(np.geomspace(f_lo, f_hi, WINDOW_POINTS))
-    solve(window, "window")
-    fit_hz = sorted(f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9))
-    if len(fit_hz) < 2:
-        raise SolverError("fewer than two window solves succeeded; the loop model cannot be fitted")
-    model = fit_loop_model(fit_hz, np.array([solved[f].y for f in fit_hz]), geom.wire_radius_m, resistivity)
+            f_lo = max(f5, f_hi / 1.3)
+            if f_lo > f_hi / 1.3:
+                f_hi = 1.3 * f_lo
+                note = (f"fit window {f_lo / 1e6:.3f}–{f_hi / 1e6:.3f} MHz reaches above "
+                        f"{WINDOW_TOP} × self-resonance; model points are less certain")
+            else:
+                note = "floor relaxed towards 5e-5 λ to fit below 0.6 × self-resonance"
+        inside = [f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9)]
+        window = []
+        for f in np.geomspace(f_lo, f_hi, WINDOW_POINTS + len(inside)):
+            if len(inside) + len(window) >= WINDOW_POINTS:
+                break
+            if all(abs(f / g - 1) > 0.03 for g in inside + window):
+                window.append(float(f))
+        solve(window, "window")
+        fit_hz = sorted(f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9))
+        if len(fit_hz) < 2:
+            raise SolverError("fewer than two window solves succeeded; the loop model cannot be fitted")
+        model = fit_loop_model(fit_hz, np.array([solved[f].y for f in fit_hz]), geom.wire_radius_m,
+                               resistivity)
+        srf_new = _lowest_resonance(model, 40 * f_hi)
+        if srf_new is None or f_hi <= 1.05 * WINDOW_TOP * srf_new or f_lo >= f_hi / 1.3 * 0.999:
+            break
+        srf = srf_new
 
     # 3. Direct MoM above the floor.
     f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)

@@ -24,7 +24,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
+from scipy.linalg import eig
 
 from simloop import reference
 
@@ -93,21 +93,27 @@ class LoopModel:
         return np.linalg.inv(y)
 
     def self_resonance_hz(self, port: int, f_max_hz: float) -> float | None:
-        """First parallel resonance seen at ``port`` with the others open (pole of Im Z_ii). [Hz]
+        """First parallel resonance seen at ``port`` with the others open (pole of Z_ii). [Hz]
 
-        The lossless model is scanned up to ``f_max_hz``; None if no resonance lies below it.
+        The lossless model Z(ω) = −jω (ω²C − L0⁻¹)⁻¹ has its poles at the generalised eigenvalues
+        ω² of L0⁻¹ v = ω² C v; port i sees those whose eigenvector has a component at i. None if
+        no such resonance lies below ``f_max_hz``.
         """
-        grid = np.geomspace(1e3, f_max_hz, 4000)
-        x = self.z(grid, lossless=True)[:, port, port].imag
-        flips = np.flatnonzero((x[:-1] > 0) & (x[1:] < 0))
-        if flips.size == 0:
+        gamma = np.linalg.inv(self.inductance_h)
+        lam, vec = eig(gamma, self.capacitance_f)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            real = np.isfinite(lam) & (np.abs(lam.imag) <= 1e-9 * np.abs(lam)) & (lam.real > 0)
+        if not np.any(real):
             return None
-        i = flips[0]
-
-        def admittance(f):  # continuous through the pole: Im(1/Z) goes from − to +
-            return (1.0 / self.z([f], lossless=True)[0, port, port]).imag
-
-        return float(brentq(admittance, grid[i], grid[i + 1], xtol=1e-6 * grid[i]))
+        lam, vec = lam.real[real], vec.real[:, real]
+        # residue of [(ω²C − Γ)⁻¹]_ii at ω² = λ_m is v_i² / (vᵀ C v)
+        norm = np.einsum("im,ij,jm->m", vec, self.capacitance_f, vec)
+        residue = vec[port] ** 2 / norm
+        seen = residue > 1e-9 * np.abs(residue).max()
+        if not np.any(seen):
+            return None
+        f = float(np.sqrt(lam[seen].min()) / (2 * np.pi))
+        return f if f <= f_max_hz else None
 
 
 def _skin_shape(frequency_hz, radius_m, resistivity_ohm_m):

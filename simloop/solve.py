@@ -190,6 +190,9 @@ def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
 
 
 def _worker(conn, mesh, env, frequency_hz):
+    import faulthandler
+
+    faulthandler.disable()  # a crash of nec2++ is reported by the parent, not dumped by the child
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     try:
         out = _solve_ports(mesh, env, frequency_hz)

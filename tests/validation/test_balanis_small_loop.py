@@ -42,19 +42,19 @@ def test_effective_height_relation():
     for turns, area, f in [(1, 1.0, 1e6), (10, 0.48, 530e3), (7, 0.2, 1.7e6)]:
         lam = SPEED_OF_LIGHT / f
         h_e = effective_height_small_loop(area, f, turns)
-        assert h_e == pytest.approx(2 * np.pi * turns * area / lam, rel=1e-14)
+        assert h_e == pytest.approx(2 * np.pi * turns * area / lam, abs=0.0, rel=1e-14)
         assert radiation_resistance_small_loop(area, f, turns) == pytest.approx(
-            80 * np.pi**2 * (h_e / lam) ** 2, rel=1e-12)
+            80 * np.pi**2 * (h_e / lam) ** 2, abs=0.0, rel=1e-12)
     # a ferrite core multiplies the effective height by the rod permeability
     assert effective_height_small_loop(1e-4, 1e6, 60, permeability=35.0) == pytest.approx(
-        35.0 * effective_height_small_loop(1e-4, 1e6, 60), rel=1e-14)
+        35.0 * effective_height_small_loop(1e-4, 1e6, 60), abs=0.0, rel=1e-14)
 
 
 def test_directivity_from_the_pattern():
     # REFERENCES §3 [mem + num]: pattern ∝ sin θ (θ from the loop axis), power ∝ sin² θ;
     # D = 4π / ∫ sin²θ dΩ = 1.5 = 1.761 dBi
     omega = integrate.quad(lambda t: np.sin(t) ** 2 * 2 * np.pi * np.sin(t), 0, np.pi)[0]
-    assert DIRECTIVITY_SMALL_LOOP == pytest.approx(4 * np.pi / omega, rel=1e-12)
+    assert DIRECTIVITY_SMALL_LOOP == pytest.approx(4 * np.pi / omega, abs=0.0, rel=1e-12)
     assert 10 * np.log10(DIRECTIVITY_SMALL_LOOP) == pytest.approx(1.761, abs=5e-4)
 
 
@@ -75,4 +75,4 @@ def test_vectorised_over_frequency():
     r = radiation_resistance_small_loop(1.0, f, 10)
     assert r.shape == (3,)
     # ∝ f⁴
-    assert r[2] / r[0] == pytest.approx((1.7e6 / 530e3) ** 4, rel=1e-12)
+    assert r[2] / r[0] == pytest.approx((1.7e6 / 530e3) ** 4, abs=0.0, rel=1e-12)

@@ -43,7 +43,7 @@ def test_iec60028_constants():
     assert RHO == pytest.approx(1.7241e-8, abs=5e-13)
     assert ALPHA_COPPER_IEC60028 == 3.93e-3
     assert resistivity_copper() == RHO
-    assert resistivity_copper(70.0) == pytest.approx(RHO * (1 + 3.93e-3 * 50), rel=1e-15)
+    assert resistivity_copper(70.0) == pytest.approx(RHO * (1 + 3.93e-3 * 50), abs=0.0, rel=1e-15)
     assert resistivity_copper(np.array([0.0, 20.0])).shape == (2,)
 
 
@@ -57,8 +57,8 @@ def test_skin_depth_check_values(f, expected_um):
 
 def test_skin_depth_scaling():
     d = skin_depth(RHO, 1e6)
-    assert skin_depth(RHO, 4e6) == pytest.approx(d / 2, rel=1e-14)
-    assert skin_depth(RHO, 1e6, mu_r=9.0) == pytest.approx(d / 3, rel=1e-14)
+    assert skin_depth(RHO, 4e6) == pytest.approx(d / 2, abs=0.0, rel=1e-14)
+    assert skin_depth(RHO, 1e6, mu_r=9.0) == pytest.approx(d / 3, abs=0.0, rel=1e-14)
 
 
 @pytest.mark.parametrize("gauge, expected_ratio, expected_mohm_per_m", [
@@ -88,7 +88,7 @@ def test_bessel_ratio_equals_kelvin_functions(a_over_delta):
     f = 1e6
     a = a_over_delta * skin_depth(RHO, f)
     assert ac_resistance_ratio_round_wire(a, f, RHO) == pytest.approx(
-        kelvin_ratio(a, f, RHO), rel=1e-9)
+        kelvin_ratio(a, f, RHO), abs=0.0, rel=1e-9)
 
 
 def exact_series_ratio(a_over_delta, terms=160):
@@ -116,7 +116,7 @@ def test_bessel_ratio_against_exact_series(a_over_delta):
     a = a_over_delta * skin_depth(RHO, f)
     # a/δ is recomputed from a; its rounding (1e-16) enters the ratio at first order
     exact = exact_series_ratio(float(a / skin_depth(RHO, f)))
-    assert ac_resistance_ratio_round_wire(a, f, RHO) == pytest.approx(exact, rel=1e-14)
+    assert ac_resistance_ratio_round_wire(a, f, RHO) == pytest.approx(exact, abs=0.0, rel=1e-14)
 
 
 def test_low_frequency_series():
@@ -126,7 +126,7 @@ def test_low_frequency_series():
         a = ratio * skin_depth(RHO, f)
         x = np.sqrt(2) * ratio
         assert ac_resistance_ratio_round_wire(a, f, RHO) - 1 == pytest.approx(x**4 / 192,
-                                                                               rel=x**4)
+                                                                               abs=0.0, rel=x**4)
 
 
 @pytest.mark.parametrize("a_over_delta", [50.0, 1e3, 1e5])
@@ -139,7 +139,7 @@ def test_large_radius_no_overflow_and_asymptote(a_over_delta):
         ratio = ac_resistance_ratio_round_wire(a, f, RHO)
     assert np.isfinite(ratio)
     asym = a_over_delta / 2 + 0.25 + 3 / (32 * a_over_delta)
-    assert ratio == pytest.approx(asym, rel=1 / a_over_delta**3 + 1e-12)
+    assert ratio == pytest.approx(asym, abs=0.0, rel=1 / a_over_delta**3 + 1e-12)
 
 
 def test_dc_limit_and_per_length():
@@ -147,7 +147,7 @@ def test_dc_limit_and_per_length():
     a = 0.4e-3
     assert ac_resistance_ratio_round_wire(a, 1.0, RHO) == pytest.approx(1.0, abs=1e-10)
     assert resistance_per_length_round_wire(a, 1.0, RHO) == pytest.approx(RHO / (np.pi * a**2),
-                                                                          rel=1e-10)
+                                                                          abs=0.0, rel=1e-10)
     # defaults to IEC copper
     assert resistance_per_length_round_wire(a, 1e6) == resistance_per_length_round_wire(a, 1e6,
                                                                                          RHO)
@@ -159,4 +159,4 @@ def test_high_frequency_limit_is_surface_resistance():
     delta = skin_depth(RHO, f)
     r_s = np.sqrt(np.pi * f * MU0 * RHO)
     assert resistance_per_length_round_wire(a, f, RHO) == pytest.approx(r_s / (2 * np.pi * a),
-                                                                        rel=delta / a)
+                                                                        abs=0.0, rel=delta / a)
