@@ -1,7 +1,29 @@
-"""simloop: method-of-moments design of tuned, tapped medium-wave receiving loops."""
+"""simloop: method-of-moments design of tuned, tapped medium-wave receiving loops.
+
+Notebook API::
+
+    import simloop
+    spec = simloop.load("geometries/shed-loop.toml")
+    result = simloop.sweep(spec)          # SweepResult; result.to_network() is an skrf.Network
+"""
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
 
 __version__ = "0.1.0"
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__"]
+
+def load(path):
+    """Load and validate a spec file (TOML). See :func:`simloop.spec.load`."""
+    from simloop.spec import load as _load
+
+    return _load(path)
+
+
+def sweep(spec, **kwargs):
+    """Impedance sweep of every tap. See :func:`simloop.impedance.run_sweep`."""
+    from simloop.impedance import run_sweep
+
+    return run_sweep(spec, **kwargs)
+
+
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep"]

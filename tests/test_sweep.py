@@ -1,0 +1,124 @@
+"""The sweep: provenance of every point, error estimates, breakdown detection, Touchstone output."""
+
+import json
+import textwrap
+
+import numpy as np
+import pytest
+import skrf
+
+from simloop import reference
+from simloop.impedance import RELIABLE_BELOW, breakdown_error, pitch_bias, run_sweep
+from simloop.report import write_sweep
+from simloop.spec import loads
+from tests.conftest import SMALL_STACKED
+
+
+@pytest.fixture(scope="module")
+def result():
+    return run_sweep(loads(textwrap.dedent(SMALL_STACKED)))
+
+
+def test_every_point_has_provenance_and_an_error(result):
+    n, k = result.frequencies_hz.size, len(result.tap_turns)
+    assert set(result.source) <= {"mom", "model"}
+    assert result.error_estimate.shape == (n, k) and result.reliable.shape == (n, k)
+    assert np.all(result.error_estimate > 0)
+    assert np.array_equal(result.reliable, result.error_estimate < RELIABLE_BELOW)
+    floor = result.mesh.floor_frequency_hz()
+    f = result.frequencies_hz
+    assert np.all(result.source[f < floor * (1 - 1e-9)] == "model")
+    assert np.all(result.source[f >= floor] == "mom")
+
+
+def test_model_agrees_with_direct_mom_where_both_exist(result):
+    # Points above the floor are solved directly; the fitted model must reproduce them (the fit
+    # window lies below, so these are held-back points for the model).
+    mom = result.source == "mom"
+    f = result.frequencies_hz[mom]
+    held_back = ~np.isin(f, result.model.fit_hz)
+    z_model = result.model.z(f[held_back])
+    z_mom = result.z_ohm[mom][held_back]
+    for i in range(len(result.tap_turns)):
+        rel = np.abs(z_model[:, i, i] - z_mom[:, i, i]) / np.abs(z_mom[:, i, i])
+        assert rel.max() < 0.01
+
+
+def test_fit_window_is_in_the_trusted_range(result):
+    fit = result.model.fit_hz
+    assert fit.min() >= result.mesh.floor_frequency_hz(5e-5) * (1 - 1e-9)
+    assert fit.max() <= 0.65 * np.nanmin(result.self_resonance_hz)
+
+
+def test_self_resonance_from_the_model_is_where_the_reactance_turns(result):
+    # At the fitted self-resonance the model's tap reactance changes sign (parallel resonance).
+    for i, srf in enumerate(result.self_resonance_hz):
+        x = result.model.z(np.array([0.98, 1.02]) * srf, lossless=True)[:, i, i].imag
+        assert x[0] > 0 > x[1]
+
+
+def test_error_model_matches_the_measured_tables():
+    # Measured with PyNEC 2.3.4 (notes): segment/pitch 2.5 -> about 2 % low, 5 -> up to 10 %.
+    assert pitch_bias(2.5) == pytest.approx(0.021, rel=1e-9, abs=0)
+    assert pitch_bias(5.0) == pytest.approx(0.10, rel=1e-9, abs=0)
+    assert pitch_bias(1.2) < pitch_bias(1.67) < pitch_bias(2.5) < pitch_bias(3.3)
+    # breakdown: <= 0.1 % at 1e-4 wavelengths, 1 % at 5e-5, tens of % at 2e-5
+    assert breakdown_error(1e-4) == pytest.approx(1e-3, rel=1e-9, abs=0)
+    assert breakdown_error(5e-5) == pytest.approx(1e-2, rel=1e-9, abs=0)
+    assert breakdown_error(2e-5) > 0.2
+
+
+def test_a_broken_down_mesh_is_flagged_unreliable():
+    # 4 mm segments solved directly at 520 kHz are 7e-6 wavelengths: deep in the breakdown, where
+    # the reactance has random sign. Forced direct solves there must never be called reliable.
+    text = textwrap.dedent(SMALL_STACKED).replace('quality = "draft"', 'segment_length = "4 mm"')
+    text = text.replace('offset = "6 cm"', 'offset = "2 cm"').replace("points = 7", "points = 4")
+    res = run_sweep(loads(text), direct=True)
+    below = res.frequencies_hz < res.mesh.floor_frequency_hz(5e-5)
+    assert below.any() and np.all(res.source == "mom")
+    assert not res.reliable[below].any()
+    assert np.all(res.error_estimate[below] >= 0.2)
+
+
+def test_touchstone_round_trip(result, tmp_path):
+    write_sweep(result, tmp_path, z0=50.0)
+    k = len(result.tap_turns)
+    multi = skrf.Network(str(tmp_path / f"taps.s{k}p"))
+    assert np.allclose(multi.f, result.frequencies_hz, rtol=1e-12, atol=0)
+    assert np.allclose(multi.z, result.z_ohm, rtol=1e-10, atol=0)
+    for i, n in enumerate(result.tap_turns):
+        one = skrf.Network(str(tmp_path / f"tap-{n}.s1p"))
+        assert np.allclose(one.z[:, 0, 0], result.z_ohm[:, i, i], rtol=1e-10, atol=0)
+    data = json.loads((tmp_path / "sweep.json").read_text())
+    for key in ("frequencies_hz", "taps", "mesh"):
+        assert key in data
+    tap = data["taps"][str(result.tap_turns[0])]
+    for key in ("impedance_ohm", "inductance_h", "self_resonance_hz", "reliable", "source", "error_estimate"):
+        assert key in tap
+    assert data["mesh"]["segments"] == result.mesh.n_segments
+    assert data["mesh"]["wire_length_m"] == pytest.approx(result.geometry.wire_length_m, rel=1e-12, abs=0)
+    assert (tmp_path / "impedance.png").stat().st_size > 10_000
+    header = (tmp_path / "impedance.csv").read_text().splitlines()[0]
+    assert header.startswith("frequency_hz,source,tap2_resistance_ohm")
+
+
+def test_touchstone_s_parameters_follow_the_standard():
+    # Touchstone 1.1/2.0 (IBIS Open Forum): S = (Z - R)/(Z + R) for a one-port normalised to R.
+    # Check [calc, REFERENCES §8]: Z = 1 + j997.2102 ohm, R = 50 -> S11 = 0.994885 + j0.100018.
+    net = skrf.Network(frequency=skrf.Frequency.from_f([530e3], unit="hz"),
+                       z=np.array([[[1 + 997.2102j]]]), z0=np.array([[50.0]]))
+    s = net.s[0, 0, 0]
+    assert s.real == pytest.approx(0.994885, abs=5e-7)
+    assert s.imag == pytest.approx(0.100018, abs=5e-7)
+
+
+def test_loss_model_follows_the_skin_effect(result):
+    # The fitted conductor-loss coefficient times the exact skin-effect ratio must reproduce the
+    # resistance the MoM gave at the fit points (NEC's type-5 load is skin effect only).
+    geom = result.geometry
+    path_len = np.linalg.norm(np.subtract(*geom.current_path(1)[::-1]), axis=1).sum()
+    f = result.model.fit_hz
+    per_m = reference.resistance_per_length_round_wire(geom.wire_radius_m, f, result.resistivity_ohm_m)
+    r_model = result.model.series_resistance(f)[:, 1, 1]
+    # series resistance of the full tap ~ its path length x R' (leads included), within 3 %
+    assert np.allclose(r_model, path_len * per_m, rtol=0.03, atol=0)
