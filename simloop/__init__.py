@@ -5,6 +5,7 @@ Notebook API::
     import simloop
     spec = simloop.load("geometries/shed-loop.toml")
     result = simloop.sweep(spec)          # SweepResult; result.to_network() is an skrf.Network
+    chart = simloop.tune(spec, result)    # TuneResult
 """
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
@@ -26,4 +27,11 @@ def sweep(spec, **kwargs):
     return run_sweep(spec, **kwargs)
 
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep"]
+def tune(spec, sweep_result, band="itu-1", field_v_per_m=1e-3):
+    """Band coverage and channel chart from a sweep. See :func:`simloop.tuning.run_tune`."""
+    from simloop.tuning import run_tune
+
+    return run_tune(spec, sweep_result, band=band, field_v_per_m=field_v_per_m)
+
+
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep", "tune"]

@@ -198,7 +198,7 @@ class RangeTuner:
     def describe(self) -> str:
         what = ("default tuner (no [tuner] in the spec): a 12–365 pF single-gang air-variable, "
                 "common practice" if self.source == "default" else "variable capacitor")
-        return f"{what}, {self.min_f * 1e12:.4g}–{self.max_f * 1e12:.4g} pF, Q {self.q:.4g}"
+        return f"{what}, {_c(self.min_f)} to {_c(self.max_f)}, Q {self.q:.4g}"
 
     def position_m(self, capacitance_f):
         """No position for a range tuner: NaN everywhere."""
@@ -287,8 +287,14 @@ class PlateTuner:
         return (f"sliding-plate capacitor, {self.gaps} gap(s) of {self.dielectric_thickness_m * 1e3:.3g} mm "
                 f"at ε_r {self.permittivity:.3g}, plates {self.plate_width_m * 1e3:.0f} × "
                 f"{self.plate_length_m * 1e3:.0f} mm, travel {self.travel_m * 1e3:.0f} mm, stray "
-                f"{self.stray_f * 1e12:.3g} pF: {self.min_f * 1e12:.4g}–{self.max_f * 1e12:.4g} pF "
+                f"{_c(self.stray_f)}: {_c(self.min_f)} to {_c(self.max_f)} "
                 f"({self.capacitance_per_m * 1e-3 * 1e12:.3g} pF per mm), Q {self.q:.4g}")
+
+
+def _c(value_f: float) -> str:
+    from simloop.units import format_quantity
+
+    return format_quantity(value_f, "capacitance")
 
 
 Tuner = RangeTuner | PlateTuner

@@ -1,0 +1,309 @@
+"""Writing the results of `simloop tune`: tuning.json, tuning.csv, tuning.png, and the summary.
+
+JSON keys carry SI units (DESIGN §2); the CSV is the channel chart a builder prints, in the units
+one reads off a dial (kHz, pF, mm), each named in its column header.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+import numpy as np
+
+from simloop import __version__
+from simloop.impedance import RELIABLE_BELOW
+from simloop.report import _num, write_json
+from simloop.tuner import PlateTuner
+from simloop.tuning import TuneResult
+
+__all__ = ["format_tune_summary", "tune_dict", "write_tune"]
+
+
+def _opt(x) -> float | None:
+    """A float, or None for NaN/inf (JSON has no NaN)."""
+    return None if x is None else _num(x)
+
+
+def _tuner_dict(t) -> dict:
+    out = {"kind": t.kind, "source": t.source, "description": t.describe(), "min_f": t.min_f,
+           "max_f": t.max_f, "q": t.q}
+    if isinstance(t, PlateTuner):
+        out.update({
+            "plate_width_m": t.plate_width_m, "plate_length_m": t.plate_length_m, "gaps": t.gaps,
+            "dielectric_thickness_m": t.dielectric_thickness_m, "permittivity": t.permittivity,
+            "travel_m": t.travel_m, "stray_f": t.stray_f, "capacitance_per_length_f_per_m": t.capacitance_per_m,
+            "law": "C(x) = stray + gaps·ε0·ε_r·width·min(x, length)/thickness; x from no overlap; "
+                   "fringing neglected",
+        })
+    return out
+
+
+def _channel(r: TuneResult, j: int) -> dict:
+    i = int(r.channel_tap_index[j])
+    alternatives = [
+        {"tap": int(n), "capacitance_f": float(r.capacitance_all_f[j, a])}
+        for a, n in enumerate(r.tap_turns) if r.reachable[j, a] and a != i
+    ]
+    if i < 0:
+        return {"frequency_hz": float(r.frequencies_hz[j]), "tap": None, "capacitance_f": None,
+                "bandwidth_hz": None, "covered": False, "reason": r.channel_reason[j],
+                "reliable": False, "alternatives": alternatives}
+    out = {
+        "frequency_hz": float(r.frequencies_hz[j]),
+        "tap": int(r.tap_turns[i]),
+        "capacitance_f": float(r.capacitance_f[j]),
+        "capacitance_error_f": _opt(r.capacitance_error_f[j]),
+        "capacitance_step_f": _opt(r.capacitance_step_f[j]),
+        "bandwidth_hz": _opt(r.bandwidth_hz[j]),
+        "bandwidth_no_proximity_hz": _opt(r.bandwidth_no_proximity_hz[j]),
+        "q_loop": _opt(r.q_loop[j]),
+        "q_loaded": _opt(r.q_loaded[j]),
+        "q_loaded_no_proximity": _opt(r.q_loaded_no_proximity[j]),
+        "audio_cut": bool(r.audio_cut[j]),
+        "audio_loss_db": _opt(r.audio_loss_db[j]),
+        "covered": True,
+        "reliable": bool(r.reliable[j]),
+        "edge": bool(r.edge[j]),
+        "outside_sweep": bool(r.outside_sweep[j]),
+        "error_estimate": _opt(r.error_estimate[j]),
+        "effective_height_m": _opt(r.effective_height_m[j]),
+        "voltage_v": _opt(r.voltage_v[j]),
+        "current_a": _opt(r.current_a[j]),
+        "alternatives": alternatives,
+    }
+    if r.tuner.has_position:
+        out["position_m"] = _opt(r.position_m[j])
+        out["position_step_m"] = _opt(r.position_step_m[j])
+        out["position_error_m"] = _opt(r.capacitance_error_f[j] / r.tuner.capacitance_per_m)
+    return out
+
+
+def _model_error_dict(r: TuneResult) -> dict:
+    h = r.model_error
+    if h is None:
+        return {"held_back_hz": [], "max_relative_error": None, "relative_error": None,
+                "note": "no direct MoM point outside the fit window in this sweep; nothing to "
+                        "compare the model with (none is invented)"}
+    taps = {str(n): _opt(h.max_relative_error[i]) for i, n in enumerate(r.tap_turns)}
+    return {
+        "quantity": "|Z_ii model − Z_ii MoM| / |Z_ii MoM|, model without the proximity correction",
+        "held_back_hz": [float(f) for f in h.frequencies_hz],
+        "max_relative_error": taps if h.frequencies_hz.size else None,
+        "relative_error": {str(n): [float(e) for e in h.relative_error[:, i]] for i, n in enumerate(r.tap_turns)},
+        "mom_error_estimate": {str(n): [float(e) for e in h.mom_error_estimate[:, i]]
+                               for i, n in enumerate(r.tap_turns)},
+        "excluded_hz": [float(f) for f in h.excluded_hz],
+        "inside_fit_span": h.inside_fit_span,
+        "relative_to_fit": h.relative_to_fit,
+        "note": ("" if h.relative_to_fit in ("below", "mixed", "none") else
+                 f"points {h.relative_to_fit} the fit window do not test the model's extrapolation "
+                 "to lower frequencies"),
+    }
+
+
+def tune_dict(r: TuneResult) -> dict:
+    """Everything `simloop tune` reports, as JSON-ready data (keys of DESIGN §6)."""
+    taps = {}
+    for i, n in enumerate(r.tap_turns):
+        taps[str(n)] = {
+            "turns": int(n),
+            "f_low_hz": _opt(r.f_low_hz[i]),
+            "f_high_hz": _opt(r.f_high_hz[i]),
+            "f_low_relative_error": _opt(r.coverage_error[i, 0]),
+            "f_high_relative_error": _opt(r.coverage_error[i, 1]),
+            # A coverage end outside the swept frequencies is the model's extrapolation.
+            "beyond_sweep": bool(r.f_high_hz[i] > r.sweep_range_hz[1] * (1 + 1e-9)
+                                 or r.f_low_hz[i] < r.sweep_range_hz[0] * (1 - 1e-9)),
+            "inductance_h": float(r.inductance_h[i]),
+            "inductance_error": float(r.inductance_error[i]),
+            "self_resonance_hz": _opt(r.self_resonance_hz[i]),
+            "self_capacitance_f": _opt(r.self_capacitance_f[i]),
+            "channels": int(np.sum(r.channel_tap_index == i)),
+        }
+    s = r.suggestion
+    suggested = None if s is None else {
+        "taps": list(s.taps),
+        "f_low_hz": [float(v) for v in s.f_low_hz],
+        "f_high_hz": [float(v) for v in s.f_high_hz],
+        "margin": s.margin,
+        "covers_band": s.covers_band,
+        "problems": list(s.problems),
+        "min_capacitance_needed_f": _opt(s.capacitance_needed_f[0]),
+        "max_capacitance_needed_f": _opt(s.capacitance_needed_f[1]),
+        "method": s.method,
+    }
+    ok = r.covered
+    at = int(np.nanargmax(np.where(ok, r.voltage_v, -np.inf))) if np.any(ok) else None
+    return {
+        "simloop_version": __version__,
+        "command": "tune",
+        "name": r.name,
+        "band": {
+            "name": r.band.name, "description": r.band.description,
+            "first_hz": float(r.frequencies_hz[0]), "last_hz": float(r.frequencies_hz[-1]),
+            "spacing_hz": r.band.spacing_hz, "audio_hz": r.band.audio_hz,
+            "channels": int(r.frequencies_hz.size),
+        },
+        "tuner": _tuner_dict(r.tuner),
+        "taps": taps,
+        "channels": [_channel(r, j) for j in range(r.frequencies_hz.size)],
+        "gaps_hz": [[float(a), float(b)] for a, b in r.gaps_hz],
+        "uncovered_channels_hz": [float(f) for f in r.frequencies_hz[~ok]],
+        "overlaps": [{"taps": list(o["taps"]),
+                      "span_hz": None if o["span_hz"] is None else list(o["span_hz"]),
+                      "margin": o["margin"]} for o in r.overlaps],
+        "suggested_taps": suggested,
+        "audio_cut_channels": int(np.sum(r.audio_cut)),
+        "model_error": _model_error_dict(r),
+        "model": {
+            "fit_frequencies_hz": [float(f) for f in r.fit_hz],
+            "sweep_range_hz": list(r.sweep_range_hz),
+            "reliable_below": RELIABLE_BELOW,
+            "q_method": "Q = ω·dB/dω / (2G) of the tuned circuit (admittance slope), capacitor loss "
+                        "ωC/Q_cap; no receiver loading",
+        },
+        "tuner_at_field": {
+            "field_v_per_m": r.field_v_per_m,
+            "max_voltage_v": None if at is None else float(r.voltage_v[at]),
+            "max_current_a": None if at is None else _opt(np.nanmax(r.current_a[ok])),
+            "at_hz": None if at is None else float(r.frequencies_hz[at]),
+            "orientation": "wave arriving in the loop plane (maximum response)",
+        },
+        "cautions": list(r.cautions),
+        "notes": list(r.notes),
+    }
+
+
+def _write_csv(r: TuneResult, path: Path) -> Path:
+    plates = r.tuner.has_position
+    with path.open("w", newline="") as fh:
+        w = csv.writer(fh)
+        head = ["frequency_khz", "tap", "capacitance_pf", "capacitance_error_pf"]
+        if plates:
+            head += ["position_mm"]
+        head += ["q_loaded", "bandwidth_khz", "audio_cut", "audio_loss_db", "reliable", "edge",
+                 "tuner_voltage_mv", "note"]
+        w.writerow(head)
+        for j, f in enumerate(r.frequencies_hz):
+            if r.channel_tap_index[j] < 0:
+                row = [f"{f / 1e3:.1f}", "", "", ""] + ([""] if plates else [])
+                row += ["", "", "", "", "false", "", "", r.channel_reason[j]]
+                w.writerow(row)
+                continue
+            row = [f"{f / 1e3:.1f}", int(r.channel_tap[j]), f"{r.capacitance_f[j] * 1e12:.2f}",
+                   f"{r.capacitance_error_f[j] * 1e12:.2f}"]
+            if plates:
+                row.append(f"{r.position_m[j] * 1e3:.2f}")
+            note = []
+            if r.edge[j]:
+                note.append("near a tuner range end")
+            if r.outside_sweep[j]:
+                note.append("above the sweep")
+            row += [f"{r.q_loaded[j]:.1f}", f"{r.bandwidth_hz[j] / 1e3:.2f}",
+                    str(bool(r.audio_cut[j])).lower(), f"{r.audio_loss_db[j]:.1f}",
+                    str(bool(r.reliable[j])).lower(), str(bool(r.edge[j])).lower(),
+                    f"{r.voltage_v[j] * 1e3:.3f}", "; ".join(note)]
+            w.writerow(row)
+    return path
+
+
+def write_tune(result: TuneResult, out: Path) -> list[Path]:
+    """Write tuning.json, tuning.csv and tuning.png into ``out``."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    written = [write_json(out / "tuning.json", tune_dict(result)),
+               _write_csv(result, out / "tuning.csv")]
+    from simloop.plots import plot_tuning
+
+    written.append(plot_tuning(result, out / "tuning.png"))
+    return written
+
+
+def _khz(f: float) -> str:
+    return f"{f / 1e3:.0f}"
+
+
+def _span(a: float, b: float) -> str:
+    return f"{a / 1e3:.0f}–{b / 1e3:.0f} kHz"
+
+
+def format_tune_summary(r: TuneResult) -> str:
+    """A short human summary: coverage per tap, gaps, suggested taps, audio-cut channels."""
+    lines = []
+    f = r.frequencies_hz
+    lines.append(f"{r.name}: {r.band.name} band, {f.size} channels {_span(f[0], f[-1])} every "
+                 f"{r.band.spacing_hz / 1e3:g} kHz")
+    lines.append(f"tuner: {r.tuner.describe()}")
+    for i, n in enumerate(r.tap_turns):
+        used = int(np.sum(r.channel_tap_index == i))
+        lo, hi = r.f_low_hz[i], r.f_high_hz[i]
+        if not (np.isfinite(lo) and np.isfinite(hi)):
+            lines.append(f"  tap {n:>3}: cannot be tuned (not inductive in the model)")
+            continue
+        err = max((e for e in r.coverage_error[i] if np.isfinite(e)), default=math.nan)
+        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), chosen for {used} channels")
+    if r.gaps_hz.size:
+        n_gap = int(np.sum(~r.covered))
+        spans = ", ".join(_span(a, b) for a, b in r.gaps_hz)
+        lines.append(f"GAPS: {spans}: {n_gap} channel{'s' if n_gap != 1 else ''} no tap reaches")
+        first = next(j for j in range(f.size) if not r.covered[j])
+        lines.append(f"  e.g. {_khz(f[first])} kHz {r.channel_reason[first]}")
+    else:
+        lines.append("no gaps: every channel is reached by some tap")
+    s = r.suggestion
+    if s is not None:
+        cov = ", ".join(f"{n} ({_span(a, b)})" for n, a, b in zip(s.taps, s.f_low_hz, s.f_high_hz))
+        lines.append(f"suggested taps ({s.margin:.0%} overlap margin, estimate): {cov}")
+        for p in s.problems:
+            lines.append(f"  taps alone cannot fix: {p}")
+    ok = r.covered
+    if np.any(ok):
+        n_cut = int(np.sum(r.audio_cut))
+        ql = r.q_loaded[ok]
+        bw = r.bandwidth_hz[ok]
+        lines.append(f"loaded Q {np.nanmin(ql):.0f}–{np.nanmax(ql):.0f}, −3 dB bandwidth "
+                     f"{np.nanmin(bw) / 1e3:.1f}–{np.nanmax(bw) / 1e3:.1f} kHz; {n_cut} of {int(ok.sum())} "
+                     f"channels narrower than the audio (±{r.band.audio_hz / 1e3:g} kHz)"
+                     + (f": a high-Q loop cuts treble, up to {np.nanmax(r.audio_loss_db):.1f} dB at "
+                        f"{r.band.audio_hz / 1e3:g} kHz" if n_cut else ""))
+        qnp = r.q_loaded_no_proximity[ok]
+        drop = 1 - ql / qnp
+        lines.append(f"  (without the proximity effect, which NEC leaves out, loaded Q would be "
+                     f"{np.nanmin(qnp):.0f}–{np.nanmax(qnp):.0f}: it costs {np.nanmin(drop):.1%}–"
+                     f"{np.nanmax(drop):.1%} of Q)")
+        n_unrel = int(np.sum(ok & ~r.reliable))
+        if n_unrel:
+            lines.append(f"model not trusted (error ≥ {RELIABLE_BELOW:.0%}) on {n_unrel} channels")
+        j = int(np.nanargmax(np.where(ok, r.voltage_v, -np.inf)))
+        lines.append(f"at {r.field_v_per_m * 1e3:g} mV/m: up to {r.voltage_v[j] * 1e3:.3g} mV across the "
+                     f"tuner ({_khz(f[j])} kHz), capacitor current up to "
+                     f"{np.nanmax(r.current_a[ok]) * 1e6:.3g} µA")
+    h = r.model_error
+    if h is None:
+        lines.append("model vs MoM at held-back points: none in this sweep")
+    elif h.frequencies_hz.size:
+        errs = ", ".join(f"tap {n} {h.max_relative_error[i]:.2%}" for i, n in enumerate(r.tap_turns))
+        lines.append(f"model vs MoM at {h.frequencies_hz.size} held-back points "
+                     f"({_span(h.frequencies_hz.min(), h.frequencies_hz.max())}): max {errs}"
+                     + f" ({h.relative_to_fit} the fit window)")
+    else:
+        lines.append(f"model vs MoM: the {h.excluded_hz.size} held-back points lie below the MoM floor; "
+                     "no comparison")
+    # A compact chart: about a dozen channels.
+    if np.any(ok):
+        plates = r.tuner.has_position
+        lines.append("chart:  kHz  tap      pF" + ("     mm" if plates else "") + "  BW kHz")
+        for j in np.unique(np.linspace(0, f.size - 1, min(f.size, 13)).round().astype(int)):
+            if not ok[j]:
+                lines.append(f"       {f[j] / 1e3:5.0f}   --  gap")
+                continue
+            pos = f" {r.position_m[j] * 1e3:6.1f}" if plates else ""
+            lines.append(f"       {f[j] / 1e3:5.0f}  {r.channel_tap[j]:3d} {r.capacitance_f[j] * 1e12:7.1f}"
+                         f"{pos}  {r.bandwidth_hz[j] / 1e3:5.1f}" + ("" if r.reliable[j] else "  (not trusted)"))
+    for n in r.notes:
+        lines.append(f"note: {n}")
+    for c in r.cautions:
+        lines.append(f"CAUTION: {c}")
+    return "\n".join(lines)
