@@ -315,12 +315,9 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
             else:
                 note = "floor relaxed towards 5e-5 λ to fit below 0.6 × self-resonance"
         inside = [f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9)]
-        window = []
-        for f in np.geomspace(f_lo, f_hi, WINDOW_POINTS + len(inside)):
-            if len(inside) + len(window) >= WINDOW_POINTS:
-                break
-            if all(abs(f / g - 1) > 0.03 for g in inside + window):
-                window.append(float(f))
+        # WINDOW_POINTS spread over the whole window; a point already solved nearby stands in.
+        window = [float(f) for f in np.geomspace(f_lo, f_hi, WINDOW_POINTS)
+                  if all(abs(f / g - 1) > 0.03 for g in inside)]
         solve(window, "window")
         fit_hz = sorted(f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9))
         if len(fit_hz) < 2:

@@ -98,17 +98,43 @@ def test_full_winding_matches_partial_inductance_sum(multi_turn):
     assert abs(_ratio(multi_turn, -1) - 1) < 0.04
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "mid-winding taps come out 3.5-4.5 % above the quasi-static sum: NEC's junction treatment "
-    "with the open rest of the winding attached at the tap (detaching that stub by 2 cm brought "
-    "the MoM back to 0.01 % of the quasi-static value); the sweep's error estimate includes it"))
-def test_mid_tap_matches_partial_inductance_sum_within_4_percent(multi_turn):
-    assert abs(_ratio(multi_turn, 0) - 1) < 0.04
+def test_mid_tap_bias_is_the_open_stub_at_the_tap_junction():
+    # Known solver behaviour, measured: the MoM inductance of a mid-winding tap comes out above
+    # the quasi-static sum although the open rest of the winding carries no current at low
+    # frequency (physically it cannot change L0). Detaching that open stub from the tap by 2 cm
+    # removes the excess; this test pins both facts, so a solver change that cures (or worsens)
+    # the junction bias shows up here. 3-turn 0.5 x 0.4 m coil, 15 mm pitch, tap at 2 turns.
+    from simloop.geometry import WINDING, build_loop
+    from simloop.lumped import fit_loop_model
+    from simloop.mesh import Mesh, build_mesh
+    from simloop.solve import Environment, solve_ports
+
+    geom = build_loop(0.5, 0.4, 3, 0.015, 0.406e-3, (2,), 0.06)
+    qs = reference.inductance_partial_sum(*geom.current_path(0), geom.wire_radius_m)
+    mesh = build_mesh(geom, 0.02)
+    stub = np.flatnonzero((np.array(geom.kinds) == WINDING) & (geom.turn == 2))[0]
+    w = int(np.flatnonzero(mesh.piece == stub)[0])
+    u = (mesh.ends[w] - mesh.starts[w]) / np.linalg.norm(mesh.ends[w] - mesh.starts[w])
+    starts, segs = mesh.starts.copy(), mesh.segments.copy()
+    starts[w] = starts[w] + 0.02 * u
+    segs[w] -= 1
+    detached = Mesh(starts, mesh.ends, segs, mesh.radius_m, mesh.port_tags, mesh.piece,
+                    mesh.target_m, mesh.quality, mesh.winding_wire)
+    freqs = [2e6, 2.5e6, 3e6]  # above the floor of 20 mm segments, far below resonance (~23 MHz)
+    ratios = []
+    for m in (mesh, detached):
+        sols = solve_ports(m, Environment(wire_conductivity_s_m=None), freqs)
+        model = fit_loop_model(freqs, np.array([s.y for s in sols]), geom.wire_radius_m, None)
+        ratios.append(model.inductance_h[0, 0] / qs)
+    attached, free = ratios
+    assert abs(free - 1) < 0.005, "without the open stub the MoM agrees with the quasi-static sum"
+    assert attached - 1 > 0.01, "with the open stub attached the MoM reads high (junction bias)"
 
 
 def test_mid_tap_deviation_is_bounded_and_reported(multi_turn):
-    # The known deviation stays below 6 % and the sweep never claims an inductance error smaller
-    # than the distance to the quasi-static model.
+    # The issue asks for 4 % on every tap; mid-winding taps of these coils read 3.9-4.7 % high
+    # (the junction bias above), so they are held to 6 %, and the sweep never claims an
+    # inductance error smaller than the distance to the quasi-static model.
     dev = abs(_ratio(multi_turn, 0) - 1)
     assert dev < 0.06
     assert multi_turn.inductance_error[0] >= dev
