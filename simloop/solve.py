@@ -334,3 +334,301 @@ def solve_ports(mesh, env: Environment, frequencies_hz, *, workers: int | None =
             if progress:
                 progress(done, len(freqs))
     return results
+
+
+# ------------------------------------------------------------------------------------------------
+# Far field (average gain test). Appended; the port solver above is unchanged.
+# ------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class FarFieldSolution:
+    """Port admittances and the far field of each port excitation at one frequency, free space.
+
+    Excitation j is 1 V at port j with every other port shorted (as in :func:`solve_ports`), so
+    the field of any port drive follows by superposition: ports driven by voltages V give
+    E = Σ_j V_j E_j.
+
+    Attributes
+    ----------
+    frequency_hz : float
+    y_raw : ndarray, shape (k, k), complex
+        Column j holds the port currents for 1 V at port j, the others shorted. [S]
+    theta_deg : ndarray, shape (nθ,)
+        Polar angle from +z, 0 to 180°. [deg]
+    phi_deg : ndarray, shape (nφ,)
+        Azimuth from +x, uniform over [0°, 360°). [deg]
+    e_theta_v, e_phi_v : ndarray, shape (k, nφ, nθ), complex
+        r·E_θ and r·E_φ of excitation j (NEC range 0, the e^(−jkr) factor removed). [V]
+    seconds : float
+        Wall time in the worker. [s]
+    cached : bool
+    """
+
+    frequency_hz: float
+    y_raw: np.ndarray
+    theta_deg: np.ndarray
+    phi_deg: np.ndarray
+    e_theta_v: np.ndarray
+    e_phi_v: np.ndarray
+    seconds: float
+    cached: bool = False
+
+    @property
+    def z(self) -> np.ndarray:
+        """Open-circuit impedance matrix Y_raw⁻¹ (diagonal as solved, off-diagonal averaged). [Ω]"""
+        z = np.linalg.inv(self.y_raw)
+        return 0.5 * (z + z.T)
+
+
+def _context(mesh: dict, env: dict):
+    """A nec_context with the mesh, the ground and the wire loss (same cards as _solve_ports)."""
+    import PyNEC  # the only module that imports PyNEC
+
+    shift = env["height_m"] if env["ground"] != "free-space" else 0.0
+    ctx = PyNEC.nec_context()
+    geo = ctx.get_geometry()
+    radius = mesh["radius_m"]
+    for tag, (p, q, n) in enumerate(zip(mesh["starts"], mesh["ends"], mesh["segments"]), start=1):
+        geo.wire(tag, int(n), float(p[0]), float(p[1]), float(p[2]) + shift,
+                 float(q[0]), float(q[1]), float(q[2]) + shift, float(radius), 1.0, 1.0)
+    ctx.geometry_complete(0)  # exactly once
+    if env["ground"] == "free-space":
+        ctx.gn_card(-1, 0, 0, 0, 0, 0, 0, 0)
+    elif env["ground"] == "perfect":
+        ctx.gn_card(1, 0, 0, 0, 0, 0, 0, 0)
+    else:
+        ctx.gn_card(2, 0, float(env["permittivity"]), float(env["conductivity_s_m"]), 0, 0, 0, 0)
+    if env["wire_conductivity_s_m"] is not None:
+        ctx.ld_card(5, 0, 0, 0, float(env["wire_conductivity_s_m"]), 0, 0)
+    return ctx
+
+
+def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float) -> dict:
+    """Run in a worker: one fill + LU; per port one back-substitution and one full-sphere pattern.
+
+    PyNEC details (notes/pynec.md): one frequency per fr_card (an fr_card with n > 1 makes later
+    rp_cards repeat); getters keep a running index, so the newest result is at count − 1;
+    get_e_theta/get_e_phi are flat and reshape to (nφ, nθ); range 0 gives r·E in volts.
+    """
+    t0 = time.perf_counter()
+    ctx = _context(mesh, env)
+    ctx.fr_card(0, 1, frequency_hz / 1e6, 0)
+    ports = mesh["port_tags"]
+    k = len(ports)
+    n_theta = int(round(180.0 / step_deg)) + 1
+    n_phi = int(round(360.0 / step_deg))
+    y = np.zeros((k, k), dtype=complex)
+    e_theta = np.zeros((k, n_phi, n_theta), dtype=complex)
+    e_phi = np.zeros((k, n_phi, n_theta), dtype=complex)
+    index = None
+    theta = phi = None
+    for j, tag in enumerate(ports):
+        ctx.ex_card(0, int(tag), 1, 0, 1.0, 0, 0, 0, 0, 0)
+        ctx.xq_card(0)
+        sc = ctx.get_structure_currents(_count(ctx.get_structure_currents) - 1)
+        if index is None:
+            tags = np.asarray(sc.get_current_segment_tag())
+            index = [int(np.flatnonzero(tags == t)[0]) for t in ports]
+        y[:, j] = np.asarray(sc.get_current())[index]
+        ctx.rp_card(0, n_theta, n_phi, 1, 0, 0, 0, 0.0, 0.0, float(step_deg), float(step_deg), 0.0, 0.0)
+        rp = ctx.get_radiation_pattern(_count(ctx.get_radiation_pattern) - 1)
+        shape = (rp.get_nphi(), rp.get_ntheta())
+        if shape != (n_phi, n_theta):
+            raise RuntimeError(f"pattern grid {shape} differs from the requested {(n_phi, n_theta)}")
+        e_theta[j] = np.asarray(rp.get_e_theta()).reshape(shape)
+        e_phi[j] = np.asarray(rp.get_e_phi()).reshape(shape)
+        theta = np.asarray(rp.get_theta_angles(), dtype=float)
+        phi = np.asarray(rp.get_phi_angles(), dtype=float)
+    seconds = time.perf_counter() - t0
+    return {
+        "y_re": y.real.tolist(), "y_im": y.imag.tolist(),
+        "theta_deg": theta.tolist(), "phi_deg": phi.tolist(),
+        "e_theta_re": e_theta.real.tolist(), "e_theta_im": e_theta.imag.tolist(),
+        "e_phi_re": e_phi.real.tolist(), "e_phi_im": e_phi.imag.tolist(),
+        "seconds": seconds,
+    }
+
+
+def _far_field_worker(conn, mesh, env, frequency_hz, step_deg):
+    import faulthandler
+
+    faulthandler.disable()
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+    try:
+        conn.send(("ok", _solve_far_field(mesh, env, frequency_hz, step_deg)))
+    except BaseException as exc:  # noqa: BLE001 - reported to the parent as data
+        conn.send(("error", f"{type(exc).__name__}: {exc}"))
+    finally:
+        conn.close()
+
+
+def _far_field_from(f: float, data: dict, cached: bool) -> FarFieldSolution:
+    return FarFieldSolution(
+        frequency_hz=f,
+        y_raw=np.array(data["y_re"]) + 1j * np.array(data["y_im"]),
+        theta_deg=np.array(data["theta_deg"]),
+        phi_deg=np.array(data["phi_deg"]),
+        e_theta_v=np.array(data["e_theta_re"]) + 1j * np.array(data["e_theta_im"]),
+        e_phi_v=np.array(data["e_phi_re"]) + 1j * np.array(data["e_phi_im"]),
+        seconds=data["seconds"],
+        cached=cached,
+    )
+
+
+def solve_far_field(mesh, env: Environment, frequencies_hz, *, step_deg: float = 5.0,
+                    workers: int | None = None, timeout_s: float | None = None,
+                    cache: SolveCache | None = None, progress=None) -> list[FarFieldSolution | SolverError]:
+    """Port admittances and the full-sphere far field of every port excitation, per frequency.
+
+    One matrix factorisation per frequency serves all ports and their patterns. Free space only:
+    with a ground, NEC leaves the points below the horizon uncomputed (notes/pynec.md).
+
+    Parameters
+    ----------
+    mesh : simloop.mesh.Mesh
+    env : Environment
+        Must have ``ground == "free-space"``; the wire loss is applied as given (the average gain
+        test wants ``wire_conductivity_s_m=None``).
+    frequencies_hz : array_like
+        Frequencies. [Hz]
+    step_deg : float
+        Grid step in θ (0–180°) and φ (0–360°, 360° excluded); 90 / step must be an integer, so
+        that θ has an even number of intervals. [deg]
+    workers, timeout_s, cache, progress
+        As for :func:`solve_ports`.
+
+    Returns
+    -------
+    list
+        A :class:`FarFieldSolution` per frequency, or the :class:`SolverError` it raised.
+    """
+    return solve_many([SolveRequest(mesh, env, float(f), "far_field", float(step_deg)) for f in frequencies_hz],
+                      workers=workers, timeout_s=timeout_s, cache=cache, progress=progress)
+
+
+@dataclass(frozen=True)
+class SolveRequest:
+    """One solve for :func:`solve_many`: port matrix (``kind="ports"``) or far field."""
+
+    mesh: object  # simloop.mesh.Mesh
+    env: Environment
+    frequency_hz: float
+    kind: str = "ports"  # "ports" | "far_field"
+    step_deg: float = 5.0
+
+
+def solve_many(requests, *, workers: int | None = None, timeout_s: float | None = None,
+               cache: SolveCache | None = None, progress=None) -> list:
+    """Independent solves of different meshes, environments and kinds in one worker pool.
+
+    Each request becomes a :class:`PortSolution` (kind ``"ports"``, the same cache entries as
+    :func:`solve_ports`) or a :class:`FarFieldSolution` (kind ``"far_field"``, as
+    :func:`solve_far_field`), or the :class:`SolverError` it raised. Misses run longest first
+    (by the measured cost law), so that one big mesh does not finish alone at the end.
+    ``timeout_s`` per solve defaults to 20 × the largest cost estimate + 60 s.
+    """
+    requests = list(requests)
+    results: list = [None] * len(requests)
+    jobs, where, keys, costs = [], [], [], []
+    for i, r in enumerate(requests):
+        payload = r.mesh.as_payload()
+        env_payload = r.env.as_payload()
+        f = float(r.frequency_hz)
+        validate_payload(payload, f)
+        if r.kind == "ports":
+            key_env, target, args = env_payload, _worker, (payload, env_payload, f)
+            cost = estimated_seconds(r.mesh.n_segments)
+        elif r.kind == "far_field":
+            if r.env.ground != "free-space":
+                raise ValueError(f"a full-sphere far field needs free space, not ground {r.env.ground!r}")
+            ratio = 90.0 / float(r.step_deg)
+            if not abs(ratio - round(ratio)) < 1e-9:
+                raise ValueError(f"step_deg = {r.step_deg!r}: 90 / step must be a whole number")
+            key_env = {**env_payload, "far_field_step_deg": float(r.step_deg)}
+            target, args = _far_field_worker, (payload, env_payload, f, float(r.step_deg))
+            n_dirs = (int(round(180 / r.step_deg)) + 1) * int(round(360 / r.step_deg))
+            cost = estimated_seconds(r.mesh.n_segments) + len(r.mesh.port_tags) * 5e-8 * r.mesh.n_segments * n_dirs
+        else:
+            raise ValueError(f"unknown solve kind {r.kind!r}")
+        key = cache.key(r.mesh.digest(), key_env, f) if cache else None
+        hit = cache.get(key) if cache else None
+        if hit is not None:
+            results[i] = (PortSolution(f, np.array(hit["y_re"]) + 1j * np.array(hit["y_im"]), hit["seconds"],
+                                       cached=True) if r.kind == "ports" else _far_field_from(f, hit, cached=True))
+            continue
+        jobs.append((target, args))
+        where.append(i)
+        keys.append(key)
+        costs.append(cost)
+    total = len(requests)
+    done = total - len(jobs)
+    if progress:
+        progress(done, total)
+    order = sorted(range(len(jobs)), key=lambda j: -costs[j])
+    workers = max(1, workers or os.cpu_count() or 1)
+    timeout_s = timeout_s or (20 * max(costs, default=0.0) + 60)
+    outs = _run_many(jobs, order, workers, timeout_s, progress, done, total)
+    for j, (status, out) in enumerate(outs):
+        i = where[j]
+        r = requests[i]
+        f = float(r.frequency_hz)
+        label = "" if r.kind == "ports" else " (far field)"
+        if status != "ok":
+            results[i] = SolverError(f"{f / 1e6:.6g} MHz{label}: {out}")
+            continue
+        if r.kind == "ports":
+            sol = PortSolution(f, np.array(out["y_re"]) + 1j * np.array(out["y_im"]), out["seconds"])
+            finite = np.all(np.isfinite(sol.y_raw))
+        else:
+            sol = _far_field_from(f, out, cached=False)
+            finite = (np.all(np.isfinite(sol.y_raw)) and np.all(np.isfinite(sol.e_theta_v))
+                      and np.all(np.isfinite(sol.e_phi_v)))
+        if not finite:
+            results[i] = SolverError(f"{f / 1e6:.6g} MHz{label}: the solver returned NaN")
+            continue
+        results[i] = sol
+        if cache:
+            cache.put(keys[j], out)
+    return results
+
+
+def _run_many(jobs, order, workers, timeout_s, progress, done, total):
+    """Run jobs [(target, args)] in the given order, at most ``workers`` at a time."""
+    ctx = mp.get_context("fork")
+    out: list = [None] * len(jobs)
+    todo = list(order)
+    running: dict = {}
+    while todo or running:
+        while todo and len(running) < workers:
+            j = todo.pop(0)
+            target, args = jobs[j]
+            reader, writer = ctx.Pipe(duplex=False)
+            proc = ctx.Process(target=target, args=(writer, *args), daemon=True)
+            proc.start()
+            writer.close()
+            running[reader] = (j, proc, time.monotonic())
+        ready = wait(list(running), timeout=1.0)
+        now = time.monotonic()
+        for reader in list(running):
+            j, proc, started = running[reader]
+            if reader in ready:
+                try:
+                    status, payload = reader.recv()
+                except EOFError:
+                    proc.join()
+                    status, payload = "error", f"the solver process died (exit code {proc.exitcode})"
+                proc.join()
+            elif now - started > timeout_s:
+                proc.kill()
+                proc.join()
+                status, payload = "error", f"no answer within {timeout_s:.0f} s (killed)"
+            else:
+                continue
+            reader.close()
+            del running[reader]
+            out[j] = (status, payload)
+            done += 1
+            if progress:
+                progress(done, total)
+    return out

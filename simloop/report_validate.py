@@ -1,0 +1,250 @@
+"""Writing and printing a validation: ``validation.json`` and the comparison table."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+
+from simloop import __version__
+from simloop.report import write_json
+from simloop.validation import (
+    AGT_ACCEPT,
+    AGT_STEP_DEG,
+    BELOW_RESOLUTION,
+    RICHARDSON_ORDER,
+    ValidationResult,
+)
+
+
+def _num(x):
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def validation_dict(result: ValidationResult) -> dict:
+    """Everything ``simloop validate`` reports, as JSON-ready data."""
+    checks = []
+    for c in result.checks:
+        checks.append({
+            "quantity": c.quantity,
+            "unit": c.unit,
+            "tap": c.tap,
+            "frequency_hz": _num(c.frequency_hz),
+            "mom": _num(c.mom),
+            "quasi_static": _num(c.quasi_static),
+            "handbook": _num(c.handbook),
+            "source": {"mom": c.source_mom, "quasi_static": c.source_quasi_static,
+                       "handbook": c.source_handbook},
+            "reference": c.reference,
+            "rel_diff": {"mom": _num(c.rel_diff_mom), "handbook": _num(c.rel_diff_handbook)},
+            "flag": c.flag,
+            "note": c.note,
+        })
+    labels = [m.label for m in result.meshes]
+    convergence = []
+    for c in result.convergence:
+        convergence.append({
+            "tap": c.tap,
+            "frequency_hz": c.frequency_hz,
+            "meshes": labels,
+            "winding_segment_m": [m.winding_segment_m for m in result.meshes],
+            "inductance_h": [float(v) for v in c.inductance_h],
+            "apparent_inductance_h": [float(v) for v in c.apparent_inductance_h],
+            "resistance_ohm": [float(v) for v in c.resistance_ohm],
+            "inductance_spread": c.inductance_spread,
+            "resistance_spread": c.resistance_spread,
+            "extrapolated_inductance_h": _num(c.extrapolated_inductance_h),
+            "observed_order": _num(c.observed_order),
+            "richardson_order": RICHARDSON_ORDER,
+            "note": c.note,
+        })
+
+    def mesh_entry(m):
+        return {"label": m.label, "segments": m.segments, "target_m": m.target_m,
+                "winding_segment_m": m.winding_segment_m, "segment_over_pitch": m.segment_over_pitch,
+                "floor_hz": m.floor_hz,
+                "rules": [{"rule": r.name, "status": r.status, "detail": r.detail} for r in m.rules]}
+
+    taps = {}
+    for i, n in enumerate(result.tap_turns):
+        v = result.tap_verdicts[n]
+        taps[str(n)] = {
+            "turns": n,
+            "inductance_h": float(result.inductance_h[i]),
+            "inductance_error": float(result.inductance_error[i]),
+            "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
+            "self_resonance_hz": _num(result.self_resonance_hz[i]),
+            "verdict": {"status": v.status, "reasons": list(v.reasons)},
+        }
+    return {
+        "simloop_version": __version__,
+        "command": "validate",
+        "name": result.name,
+        "ground": result.ground,
+        "verdict": {"status": result.verdict.status, "reasons": list(result.verdict.reasons)},
+        "q_used_by_tune": result.q_used_by_tune,
+        "check_frequencies_hz": [float(f) for f in result.check_frequencies_hz],
+        "taps": taps,
+        "checks": checks,
+        "convergence": convergence,
+        "convergence_frequency_hz": _num(result.convergence_frequency_hz),
+        "meshes": [mesh_entry(m) for m in result.meshes] or [mesh_entry(result.sweep_mesh)],
+        "average_gain": {
+            "frequency_hz": _num(result.agt_frequency_hz),
+            "accept": list(AGT_ACCEPT),
+            "configuration": "lossless wire, free space, each tap driven alone (other taps open)",
+            "grid": f"θ 0–180°, φ 0–{360 - AGT_STEP_DEG:g}° in {AGT_STEP_DEG:g}° steps; Simpson in θ "
+                    f"with sin θ weights",
+            "taps": [{"tap": a.tap, "agt": a.agt, "radiated_power_w": a.radiated_power_w,
+                      "input_power_w": a.input_power_w, "input_resistance_ohm": a.input_resistance_ohm,
+                      "accepted": a.accepted} for a in result.average_gain],
+        },
+        "notes": list(result.notes),
+        "seconds": result.seconds,
+    }
+
+
+def write_validate(result: ValidationResult, out: Path) -> list[Path]:
+    """Write validation.json into ``out``."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    return [write_json(out / "validation.json", validation_dict(result))]
+
+
+# ------------------------------------------------------------------------------------------------
+# The printed table
+# ------------------------------------------------------------------------------------------------
+
+_PREFIX = [(1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"), (1e-9, "n"), (1e-12, "p")]
+_UNIT = {"H": "H", "ohm": "Ω", "Hz": "Hz", "-": ""}
+
+
+def _si(value, unit: str) -> str:
+    if value is None:
+        return "-"
+    u = _UNIT.get(unit, unit)
+    if unit == "-":
+        return f"{value:.4g}"
+    if unit == "Hz":
+        return f"{value / 1e6:.4f} MHz"
+    mag = abs(value)
+    for scale, p in _PREFIX:
+        if mag >= scale * 0.9995 or scale == 1e-12:
+            return f"{value / scale:.4g} {p}{u}"
+    return f"{value:.4g} {u}"
+
+
+def _pct(x) -> str:
+    return "-" if x is None else f"{x * 100:+.1f} %"
+
+
+def _mhz(f) -> str:
+    return "-" if f is None else f"{f / 1e6:.3f}"
+
+
+def format_validate_table(result: ValidationResult) -> str:
+    """The comparison table, fixed width, as printed by ``simloop validate``."""
+    lines = []
+    sources: list[str] = []
+
+    def src(text):
+        if text is None:
+            return "-"
+        if text not in sources:
+            sources.append(text)
+        return str(sources.index(text) + 1)
+
+    m = result.sweep_mesh
+    lines.append(f"Validation of {result.name}: {len(result.tap_turns)} taps ({', '.join(map(str, result.tap_turns))} "
+                 f"turns), {result.style} winding, {result.ground}")
+    lines.append(f"mesh: {m.segments} segments, winding segment {m.winding_segment_m * 1e3:.2f} mm = "
+                 f"{m.segment_over_pitch:.2f} × pitch; direct MoM trusted above {m.floor_hz / 1e6:.3f} MHz")
+    lines.append(f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the sweep's fit "
+                 f"window, above the breakdown floor)")
+    lines.append("MoM = method of moments; QS = quasi-static model of the real wire path (no MoM); "
+                 "HB = handbook formula")
+    lines.append("ΔMoM, ΔHB: relative difference from QS (from MoM where QS has no value); "
+                 "series values have the fitted self-capacitance removed")
+    header = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'QS':>12}  {'HB':>12}  "
+              f"{'ΔMoM':>8}  {'ΔHB':>8}  src")
+    for i, n in enumerate(result.tap_turns):
+        v = result.tap_verdicts[n]
+        lines.append("")
+        lines.append(f"tap {n} turns: L0 = {result.inductance_h[i] * 1e6:.3f} µH ± {result.inductance_error[i]:.1%} "
+                     f"(sweep), quasi-static {result.quasi_static_inductance_h[i] * 1e6:.3f} µH; "
+                     f"verdict {v.status}")
+        lines.append(header)
+        lines.append("  " + "-" * (len(header) - 2))
+        previous_f = "start"
+        for c in (c for c in result.checks if c.tap == n):
+            if c.frequency_hz is not None and previous_f not in ("start", None) and c.frequency_hz != previous_f \
+                    and c.quantity != "Q tune":
+                lines.append("")
+            previous_f = c.frequency_hz
+            mom = "< resolution" if c.flag == BELOW_RESOLUTION else _si(c.mom, c.unit)
+            hb_d = _pct(c.rel_diff_handbook)
+            if c.reference == "mom" and c.rel_diff_handbook is not None:
+                hb_d += "*"
+            s = "/".join(src(x) for x in (c.source_mom, c.source_quasi_static, c.source_handbook))
+            lines.append(f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
+                         f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
+                         f"{_pct(c.rel_diff_mom):>8}  {hb_d:>8}  {s}")
+        for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.note):
+            lines.append(f"  {c.quantity}: {c.note}")
+        flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
+        if flagged is not None:
+            lines.append(f"  {flagged.quantity}: {flagged.note}")
+    if any(c.reference == "mom" and c.rel_diff_handbook is not None for c in result.checks):
+        lines.append("  * relative to MoM (no quasi-static value)")
+
+    # Convergence
+    lines.append("")
+    if result.convergence:
+        lines.append(f"mesh convergence at {_mhz(result.convergence_frequency_hz)} MHz "
+                     f"(series L and R, fitted self-capacitance removed):")
+        lines.append(f"  {'mesh':<7} {'segments':>8} {'Δ [mm]':>7} {'Δ/pitch':>7}  rules that warn or fail")
+        for mr in result.meshes:
+            bad = [f"{r.name} ({r.status})" for r in mr.rules
+                   if r.status != "pass" and not r.name.startswith("low-frequency") and r.name != "size"]
+            lines.append(f"  {mr.label:<7} {mr.segments:>8} {mr.winding_segment_m * 1e3:>7.2f} "
+                         f"{mr.segment_over_pitch:>7.2f}  {'; '.join(bad) or '-'}")
+        labels = [mr.label for mr in result.meshes]
+        lines.append(f"  {'tap':<4} " + " ".join(f"{'L ' + lb:>12}" for lb in labels)
+                     + f" {'L spread':>9} {'R spread':>9} {'L extrap.':>12}  trend")
+        for c in result.convergence:
+            est = "-" if c.extrapolated_inductance_h is None else _si(c.extrapolated_inductance_h, "H")
+            lines.append(f"  {c.tap:<4} " + " ".join(f"{_si(v, 'H'):>12}" for v in c.inductance_h)
+                         + f" {c.inductance_spread:>9.2%} {c.resistance_spread:>9.2%} {est:>12}  {c.note}")
+    else:
+        lines.append("mesh convergence: not assessed")
+
+    # Average gain
+    lines.append("")
+    if result.average_gain:
+        lines.append(f"average gain test at {_mhz(result.agt_frequency_hz)} MHz (lossless wire, free space, each "
+                     f"tap driven alone; accept {AGT_ACCEPT[0]}–{AGT_ACCEPT[1]}):")
+        for a in result.average_gain:
+            lines.append(f"  tap {a.tap}: {a.agt:.4f} ({10 * np.log10(a.agt):+.3f} dB)  "
+                         f"{'accepted' if a.accepted else 'OUTSIDE the accepted range'}")
+    else:
+        lines.append("average gain test: not run")
+
+    lines.append("")
+    lines.append(f"Q used by tune and couple: {result.q_used_by_tune} (rows 'Q skin+prox' and 'Q tune'); "
+                 f"NEC's wire loss models the skin effect only")
+    lines.append(f"VERDICT: {result.verdict.status.upper()}")
+    for r in result.verdict.reasons:
+        lines.append(f"  - {r}")
+    if result.notes:
+        lines.append("notes:")
+        for note in result.notes:
+            lines.append(f"  - {note}")
+    lines.append("sources (MoM/QS/HB column numbers above):")
+    for k, s in enumerate(sources, start=1):
+        lines.append(f"  {k}. {s}")
+    lines.append(f"validation took {result.seconds:.1f} s")
+    return "\n".join(lines)

@@ -1,0 +1,1020 @@
+r"""Validation: can the formulas a loop was designed with be trusted, and can the MoM model?
+
+``run_validate`` sets the method-of-moments results of a finished sweep against two independent
+references, tap by tap:
+
+* the **quasi-static model** of the real wire path (no MoM): the partial-inductance sum of the
+  tap's current path including its leads, the radiation resistance of that path's magnetic moment,
+  and the exact round-wire skin-effect resistance times the path's length (plus the proximity
+  term of :mod:`simloop.losses`);
+* the **handbook formulas** a designer uses with pencil and paper: Terman/Grover for the rectangle,
+  Grover's square-coil (current-sheet) formula for stacked turns, a current-sheet formula for flat
+  square spirals, Balanis' small-loop radiation resistance with N·A of the frame, the surface-
+  resistance loss and Smith's proximity factor, and Medhurst's self-capacitance.
+
+Quantities: inductance (L0 from the fitted model, and the series inductance at each check
+frequency), radiation resistance (a lossless re-solve of the same mesh, and the far field), wire
+loss with and without the proximity effect, Q with and without it, and the self-resonance (a
+direct MoM solve either side of the fitted model's prediction).
+
+The checks run where the MoM is valid: at frequencies of the sweep's own fit window (segments
+above the low-frequency breakdown floor, below ~0.6 × self-resonance). Series quantities there
+have the fitted shunt capacitance removed, Z_s = (Y − jωC)⁻¹, so that they are comparable with
+formulas that know nothing of self-capacitance; a tuned circuit's Q is ωL/R_s of that series
+branch.
+
+Mesh convergence reruns the MoM on a coarser and a finer mesh at one common frequency above every
+mesh's floor, reports the spread of L and R, and extrapolates in the winding segment length with
+the measured exponent 1.5 (Richardson) where the three values form a trend.
+
+The average gain test (AGT) drives each tap of the lossless loop in free space (other taps open,
+by superposition of the short-circuit excitations), integrates the radiated power over the
+sphere with sin θ weights and divides it by the input power ½ Re(V I*). Energy conservation makes
+it 1 for any lossless model; PyNEC's ``get_gain_mean`` is a mean of dB values and is not it.
+
+Over real ground a loss-free input resistance that is negative or below ~0.1 Ω is not resolved
+by the solver (notes/pynec.md: a lossless coil showed −0.05 Ω over Sommerfeld ground); it is
+reported as below the solver's resolution, never as a number.
+
+This module computes only: no printing and no files (:mod:`simloop.report_validate` writes).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import brentq
+
+from simloop import reference
+from simloop.errors import SolverError
+from simloop.geometry import LoopGeometry
+from simloop.impedance import ASYMMETRY_LIMIT, WINDOW_TOP, SweepResult
+from simloop.losses import proximity_factors, proximity_resistance, winding_length_to_turn
+from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
+from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
+
+#: Over real ground, a loss-free input resistance below this is not resolved (notes/pynec.md:
+#: a lossless coil showed R = −0.05 Ω with Sommerfeld ground). [Ω]
+GROUND_RESOLUTION_OHM = 0.1
+BELOW_RESOLUTION = "below solver resolution"
+#: Accepted range of the average gain test (common NEC practice, REFERENCES §9).
+AGT_ACCEPT = (0.95, 1.05)
+#: Beyond this range the input resistance is not merely imprecise but wrong.
+AGT_BROKEN = (0.8, 1.25)
+#: Convergence meshes, as multiples of the sweep mesh's target segment length.
+COARSE_FACTOR = 1.5
+FINE_FACTOR = 0.75
+#: Exponent of the pitch-rule error in the winding segment length (notes/pynec.md: Richardson
+#: extrapolation with 1.5 from the 2.5 and 1.67 × pitch pair recovered L within 0.1–0.4 %).
+RICHARDSON_ORDER = 1.5
+#: Observed orders outside this range do not count as a trend.
+ORDER_RANGE = (0.75, 3.0)
+#: Verdict thresholds on |L_MoM / L_quasi-static − 1| and on the convergence spread of L.
+L_OK, L_CAUTION = 0.02, 0.04
+SPREAD_OK, SPREAD_CAUTION = 0.02, 0.05
+#: Spread of the series resistance over the meshes above which Q is less certain.
+R_SPREAD_CAUTION = 0.05
+#: MoM copper loss against the exact skin-effect formula (NEC type-5 loads were within
+#: 0.1–0.3 % on a single loop, notes/pynec.md); beyond this something else is in the loss.
+R_LOSS_CAUTION = 0.05
+#: Direct-MoM check of the self-resonance: bracket either side of the model's prediction; a
+#: caution when the misfit moves the model's impedance at the top of the band by more than this.
+SRF_BRACKET = 0.04
+SRF_CAUTION = 0.01
+#: Reciprocity defect of the port matrix that earns a caution (the sweep's hard limit is
+#: :data:`simloop.impedance.ASYMMETRY_LIMIT`).
+ASYMMETRY_CAUTION = 0.05
+#: Which loop Q the tune and couple studies use.
+Q_USED_BY_TUNE = "proximity-corrected"
+#: Far-field grid step for the average gain test. [deg]
+AGT_STEP_DEG = 5.0
+
+ETA0 = reference.MU0 * C0  #: impedance of free space [Ω]
+
+_MESH_RULES_CAUTION = {
+    "segment <= 2 x pitch on the winding": "pitch rule",
+    "uniform segment length (leads included)": "uniform segments",
+    "thin-wire kernel: segment/radius >= 8": "thin-wire kernel",
+    "segment <= 0.05 wavelength at the top frequency": "segment/wavelength",
+}
+
+
+# ------------------------------------------------------------------------------------------------
+# Formulas not (yet) in simloop.reference
+# ------------------------------------------------------------------------------------------------
+
+
+def magnetic_moment_area_m2(starts, ends) -> np.ndarray:
+    r"""Vector area of a closed circuit of straight pieces, m/I = ½ ∮ r × dl. [m²]
+
+    For a straight piece from p to q, ∫ r × dr = p × q, so the vector area is ½ Σ p_k × q_k,
+    independent of the origin when the circuit is closed.
+    """
+    p = np.asarray(starts, dtype=float).reshape(-1, 3)
+    q = np.asarray(ends, dtype=float).reshape(-1, 3)
+    return 0.5 * np.cross(p, q).sum(axis=0)
+
+
+def radiation_resistance_moment(area_vector_m2, frequency_hz) -> float:
+    r"""Radiation resistance of an electrically small closed circuit from its vector area. [Ω]
+
+    .. math:: R_r = \frac{\eta_0 k^4}{6\pi}\,|\mathbf{A}|^2 \approx 320\pi^4\frac{|\mathbf{A}|^2}{\lambda^4}
+
+    The magnetic-dipole term of any small current loop; for N equal plane turns |A| = N·A and it
+    is Balanis' small-loop formula (C. A. Balanis, *Antenna Theory*, 4th ed., 2016, ch. 5), whose
+    constant 320π⁴ takes η0 = 120π; with η0 = μ0·c, as here and in NEC, it is 0.07 % lower.
+    Using the vector area of the actual winding path takes in the unequal turns of a spiral and
+    the lead loop.
+    """
+    k = 2 * np.pi * float(frequency_hz) / C0
+    a2 = float(np.dot(area_vector_m2, area_vector_m2))
+    return ETA0 * k**4 * a2 / (6 * np.pi)
+
+
+def inductance_square_spiral_current_sheet(d_out_m, d_in_m, turns) -> float:
+    r"""Current-sheet inductance of a flat square spiral (Mohan et al. 1999). [H]
+
+    .. math:: L = \frac{\mu_0 n^2 d_{avg} c_1}{2}\left[\ln\frac{c_2}{\rho} + c_3\rho
+              + c_4\rho^2\right],\quad d_{avg} = \frac{d_{out} + d_{in}}{2},\quad
+              \rho = \frac{d_{out} - d_{in}}{d_{out} + d_{in}}
+
+    with c1 = 1.27, c2 = 2.07, c3 = 0.18, c4 = 0.13 for a square spiral; d_out and d_in are the
+    outer and inner side lengths of the winding (conductor edges).
+
+    References
+    ----------
+    .. [1] S. S. Mohan, M. del Mar Hershenson, S. P. Boyd, T. H. Lee, "Simple accurate
+       expressions for planar spiral inductances", IEEE J. Solid-State Circuits 34(10), 1999,
+       pp. 1419–1424 (current-sheet expression, table of c1–c4). Coefficients from memory
+       [mem]: confirm against the paper before relying on them.
+    """
+    d_out, d_in, n = float(d_out_m), float(d_in_m), float(turns)
+    d_avg = 0.5 * (d_out + d_in)
+    rho = (d_out - d_in) / (d_out + d_in)
+    c1, c2, c3, c4 = 1.27, 2.07, 0.18, 0.13
+    return reference.MU0 * n**2 * d_avg * c1 / 2 * (np.log(c2 / rho) + c3 * rho + c4 * rho**2)
+
+
+def rosa_b(turns: int) -> float:
+    r"""Rosa's correction B for the mutual inductances of N round-wire turns against a sheet. [-]
+
+    .. math:: B = -\frac{2}{N}\sum_{k=1}^{N-1}(N-k)\left[F(k) - \ln k\right],\quad
+              F(k) = \tfrac12\left[(k+1)^2\ln(k+1) + (k-1)^2\ln|k-1| - 2k^2\ln k\right]
+              - \tfrac32
+
+    F(k) is the mean of ln(distance) between two strips of unit width whose centres are k apart;
+    B is its difference from the filaments' ln k, summed over the pairs of turns. The sum
+    reproduces Rosa's table (B = 0.1137, 0.1663, 0.1973 for N = 2, 3, 4; 0.2664 for N = 10;
+    0.3365 as N → ∞) [mem for the table; the sum is derived here].
+    """
+    n = int(turns)
+
+    def f(k):
+        km1 = (k - 1) ** 2 * np.log(abs(k - 1)) if k != 1 else 0.0
+        return 0.5 * ((k + 1) ** 2 * np.log(k + 1) + km1 - 2 * k**2 * np.log(k)) - 1.5
+
+    return float(-(2.0 / n) * sum((n - k) * (f(k) - np.log(k)) for k in range(1, n)))
+
+
+def rosa_round_wire_correction(turn_length_m, turns, pitch_m, wire_diameter_m) -> float:
+    r"""Round-wire correction of a current-sheet inductance (Rosa 1908; Grover 1946). [H]
+
+    .. math:: L = L_{sheet} - \frac{\mu_0}{2\pi}\,\ell N (A + B),\qquad
+              A = \tfrac54 - \ln\frac{2p}{d}
+
+    ℓ is the length of one turn, p the pitch, d the wire diameter, B from :func:`rosa_b`. A is
+    Rosa's value for a uniform (DC) current; with the current on the surface it is 0.25 larger.
+    For spaced windings (p ≫ d) A is negative and the correction adds inductance: a current sheet
+    underestimates thin wires.
+
+    References
+    ----------
+    .. [1] E. B. Rosa, "The self and mutual inductances of linear conductors", Bull. Bureau of
+       Standards 4(2), 1908 (corrections A and B).
+    .. [2] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946.
+    """
+    a = 1.25 - np.log(2 * float(pitch_m) / float(wire_diameter_m))
+    return float(-reference.MU0 / (2 * np.pi) * float(turn_length_m) * int(turns) * (a + rosa_b(turns)))
+
+
+def sphere_weights(theta_deg, phi_deg) -> np.ndarray:
+    r"""Quadrature weights on a θ–φ grid for ∮ F dΩ = Σ w F, shape (nφ, nθ). [sr]
+
+    Composite Simpson in θ over [0°, 180°] (an even number of intervals) with the sin θ factor of
+    the solid angle, uniform (periodic) weights in φ over [0°, 360°).
+    """
+    th = np.radians(np.asarray(theta_deg, dtype=float))
+    ph = np.asarray(phi_deg, dtype=float)
+    n = th.size - 1
+    if n < 2 or n % 2:
+        raise ValueError(f"θ needs an even number of intervals for Simpson's rule, got {n}")
+    h = th[1] - th[0]
+    if not np.allclose(np.diff(th), h) or abs(th[0]) > 1e-9 or abs(th[-1] - np.pi) > 1e-9:
+        raise ValueError("θ must run uniformly from 0° to 180°")
+    dph = 360.0 / ph.size
+    if not np.allclose(ph, ph[0] + dph * np.arange(ph.size)):
+        raise ValueError("φ must be uniform over [0°, 360°)")
+    simpson = np.ones(th.size)
+    simpson[1:-1:2], simpson[2:-1:2] = 4.0, 2.0
+    w_theta = simpson * h / 3 * np.sin(th)
+    return np.radians(dph) * np.broadcast_to(w_theta, (ph.size, th.size))
+
+
+def average_gain(e_theta_v, e_phi_v, theta_deg, phi_deg, input_power_w) -> tuple[float, float]:
+    r"""Average gain of a pattern: radiated power over the sphere / input power. [-]
+
+    .. math:: P_{rad} = \oint \frac{|rE_\theta|^2 + |rE_\phi|^2}{2\eta_0}\,d\Omega,\qquad
+              \mathrm{AGT} = P_{rad}/P_{in}
+
+    Returns (AGT, P_rad [W]). ``e_theta_v``, ``e_phi_v``: r·E, shape (nφ, nθ), peak values. [V]
+    """
+    w = sphere_weights(theta_deg, phi_deg)
+    density = (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2) / (2 * ETA0)
+    p_rad = float(np.sum(w * density))
+    return p_rad / float(input_power_w), p_rad
+
+
+def richardson(segment_m, values, order: float = RICHARDSON_ORDER):
+    r"""Extrapolate values(Δ) = v* + cΔ^p to Δ → 0 from the two finest meshes.
+
+    Parameters
+    ----------
+    segment_m : array_like, shape (3,)
+        Segment lengths, coarse to fine. [m]
+    values : array_like, shape (3,)
+    order : float
+        p used for the extrapolation.
+
+    Returns
+    -------
+    (estimate or None, observed order or None, reason)
+        The estimate only when the three values are monotone in Δ and the order they imply lies in
+        :data:`ORDER_RANGE`; the reason says in words why not otherwise.
+    """
+    d = np.asarray(segment_m, dtype=float)
+    v = np.asarray(values, dtype=float)
+    d1, d2 = v[0] - v[1], v[1] - v[2]
+    scale = abs(v[2])
+    if abs(d1) < 1e-4 * scale and abs(d2) < 1e-4 * scale:
+        return float(v[2]), None, "the three meshes agree within 0.01 %"
+    if d1 * d2 <= 0:
+        return None, None, (f"not monotone in segment length (coarse → sweep {-d1 / scale:+.2%}, sweep → "
+                            f"fine {-d2 / scale:+.2%}): no power-law trend to extrapolate")
+    ratio = d1 / d2
+
+    def mismatch(p):
+        return (d[0] ** p - d[1] ** p) / (d[1] ** p - d[2] ** p) - ratio
+
+    lo, hi = 0.05, 8.0
+    if mismatch(hi) < 0:
+        return None, None, (f"converged between the finer two: coarse → sweep {-d1 / scale:+.2%}, sweep → "
+                            f"fine {-d2 / scale:+.2%}; the steps shrink faster than any power law")
+    if mismatch(lo) > 0:
+        return None, None, (f"the steps do not shrink with the segment length (coarse → sweep "
+                            f"{-d1 / scale:+.2%}, sweep → fine {-d2 / scale:+.2%}): no power-law trend")
+    p_obs = float(brentq(mismatch, lo, hi))
+    if not ORDER_RANGE[0] <= p_obs <= ORDER_RANGE[1]:
+        return None, p_obs, (f"observed order {p_obs:.2f} lies outside {ORDER_RANGE[0]}–"
+                             f"{ORDER_RANGE[1]}: the meshes are not in the asymptotic range")
+    c = (v[1] - v[2]) / (d[1] ** order - d[2] ** order)
+    return float(v[2] - c * d[2] ** order), p_obs, f"Richardson, p = {order} (observed {p_obs:.2f})"
+
+
+# ------------------------------------------------------------------------------------------------
+# Results
+# ------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Check:
+    """One row of the comparison: a quantity of one tap, by MoM, quasi-static model and handbook.
+
+    ``rel_diff_mom`` = mom / reference − 1 and ``rel_diff_handbook`` = handbook / reference − 1,
+    where ``reference`` names the column they refer to (the quasi-static model where it exists,
+    else the MoM). None where a column does not apply; ``flag`` says why a value is missing when
+    it is not simply inapplicable (``"below solver resolution"``).
+    """
+
+    quantity: str
+    unit: str
+    tap: int
+    frequency_hz: float | None
+    mom: float | None
+    quasi_static: float | None
+    handbook: float | None
+    source_mom: str | None
+    source_quasi_static: str | None
+    source_handbook: str | None
+    reference: str | None
+    rel_diff_mom: float | None
+    rel_diff_handbook: float | None
+    flag: str | None = None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class MeshRun:
+    """One mesh of the convergence study."""
+
+    label: str  # "coarse", "sweep" or "fine"
+    target_m: float
+    segments: int
+    winding_segment_m: float
+    segment_over_pitch: float
+    floor_hz: float
+    rules: tuple = ()
+
+
+@dataclass(frozen=True)
+class Convergence:
+    """L and R of one tap on the three meshes at one frequency.
+
+    ``inductance_h``/``resistance_ohm`` are the series values with the fitted shunt capacitance
+    removed, in the order of :attr:`ValidationResult.meshes`; spreads are (max − min) / the sweep
+    mesh's value.
+    """
+
+    tap: int
+    frequency_hz: float
+    inductance_h: np.ndarray
+    apparent_inductance_h: np.ndarray
+    resistance_ohm: np.ndarray
+    inductance_spread: float
+    resistance_spread: float
+    extrapolated_inductance_h: float | None
+    observed_order: float | None
+    note: str
+
+
+@dataclass(frozen=True)
+class AverageGain:
+    """Average gain test of one tap driven alone (others open), lossless wire, free space."""
+
+    tap: int
+    frequency_hz: float
+    agt: float
+    radiated_power_w: float
+    input_power_w: float
+    input_resistance_ohm: float
+    accepted: bool
+
+
+@dataclass(frozen=True)
+class Verdict:
+    status: str  # "ok" | "caution" | "unreliable"
+    reasons: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ValidationResult:
+    """Everything ``simloop validate`` reports.
+
+    Attributes
+    ----------
+    checks : tuple of Check
+    meshes : tuple of MeshRun
+        Convergence meshes, coarse to fine (empty when convergence was not run).
+    convergence : tuple of Convergence
+    average_gain : tuple of AverageGain
+    verdict : Verdict
+    tap_verdicts : dict
+        Tap turns → Verdict.
+    check_frequencies_hz : ndarray
+        Frequencies of the per-frequency checks (inside the sweep's fit window). [Hz]
+    convergence_frequency_hz : float or None
+    agt_frequency_hz : float or None
+    """
+
+    name: str
+    tap_turns: tuple[int, ...]
+    style: str
+    ground: str
+    checks: tuple[Check, ...]
+    meshes: tuple[MeshRun, ...]
+    convergence: tuple[Convergence, ...]
+    average_gain: tuple[AverageGain, ...]
+    verdict: Verdict
+    tap_verdicts: dict
+    check_frequencies_hz: np.ndarray
+    convergence_frequency_hz: float | None
+    agt_frequency_hz: float | None
+    inductance_h: np.ndarray
+    inductance_error: np.ndarray
+    quasi_static_inductance_h: np.ndarray
+    self_resonance_hz: np.ndarray
+    sweep_mesh: MeshRun
+    notes: tuple[str, ...] = ()
+    seconds: float = 0.0
+    q_used_by_tune: str = Q_USED_BY_TUNE
+
+
+# ------------------------------------------------------------------------------------------------
+# Helpers
+# ------------------------------------------------------------------------------------------------
+
+
+def _rel(value, ref):
+    if value is None or ref is None or not np.isfinite(value) or not np.isfinite(ref) or ref == 0:
+        return None
+    return float(value / ref - 1.0)
+
+
+def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=None, note=""):
+    mom = None if mom is None or not np.isfinite(mom) else float(mom)
+    qs = None if qs is None or not np.isfinite(qs) else float(qs)
+    hb = None if hb is None or not np.isfinite(hb) else float(hb)
+    ref_name, ref = ("quasi_static", qs) if qs is not None else (("mom", mom) if mom is not None else (None, None))
+    return Check(
+        quantity=quantity, unit=unit, tap=int(tap), frequency_hz=None if f is None else float(f),
+        mom=mom, quasi_static=qs, handbook=hb,
+        source_mom=src_mom if mom is not None or flag else None,
+        source_quasi_static=src_qs if qs is not None else None,
+        source_handbook=src_hb if hb is not None else None,
+        reference=ref_name,
+        rel_diff_mom=_rel(mom, ref) if ref_name == "quasi_static" else None,
+        rel_diff_handbook=_rel(hb, ref),
+        flag=flag, note=note,
+    )
+
+
+def _quietly(fn, *args, **kwargs):
+    """Call a reference formula, returning (value, warning texts) instead of raising warnings."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        value = fn(*args, **kwargs)
+    return value, [str(w.message) for w in caught]
+
+
+def _series(y: np.ndarray, cap: np.ndarray, f: float) -> np.ndarray:
+    """Series branch of a port matrix with the shunt capacitance removed, (Y − jωC)⁻¹. [Ω]"""
+    return np.linalg.inv(y - 1j * 2 * np.pi * f * cap)
+
+
+def _mesh_run(label, mesh: Mesh, geom: LoopGeometry, spec) -> MeshRun:
+    rules = mesh_rules(mesh, geom, spec.sweep.start_hz, spec.sweep.stop_hz, spec.winding.turns)
+    return MeshRun(label=label, target_m=mesh.target_m, segments=mesh.n_segments,
+                   winding_segment_m=mesh.winding_segment_m,
+                   segment_over_pitch=mesh.winding_segment_m / geom.pitch_m,
+                   floor_hz=mesh.floor_frequency_hz(FLOOR_TRUSTED), rules=tuple(rules))
+
+
+def _turn_sides(spec, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Centre-line sides (width, height) of the first n turns. [m]"""
+    k = np.arange(n)
+    inset = 2 * k * spec.winding.pitch_m if spec.winding.style == "spiral" else np.zeros(n)
+    return spec.frame.width_m - inset, spec.frame.height_m - inset
+
+
+def _handbook_inductance(spec, n: int) -> tuple[float, str]:
+    w, h = spec.frame.width_m, spec.frame.height_m
+    d = spec.wire.diameter_m
+    p = spec.winding.pitch_m
+    if n == 1:
+        return float(reference.inductance_rectangle_terman1943(w, h, d)), \
+            "Terman 1943 sec. 2 / Grover 1946: single-turn rectangle"
+    if spec.winding.style == "stacked":
+        s = 0.5 * (w + h)
+        sheet = float(reference.inductance_square_coil_grover1946(s, n, n * p))
+        src = (f"Grover 1946 square-coil current-sheet formula (side {s * 1e3:.0f} mm"
+               f"{', square of equal perimeter' if abs(w - h) > 1e-9 else ''}, length N·pitch) "
+               f"+ Rosa 1908 round-wire correction A + B")
+        return sheet + rosa_round_wire_correction(4 * s, n, p, d), src
+    ws, hs = _turn_sides(spec, n)
+    d_out = 0.5 * (ws[0] + hs[0]) + d
+    d_in = 0.5 * (ws[-1] + hs[-1]) - d
+    src = ("Mohan et al. 1999 current-sheet expression for square spirals (empirical, fitted to planar "
+           "spirals; coefficients from memory)"
+           + (", mean side of the rectangle" if abs(w - h) > 1e-9 else ""))
+    return inductance_square_spiral_current_sheet(d_out, d_in, n), src
+
+
+def _turn_area_and_perimeter(spec, n: int) -> tuple[float, float]:
+    """Mean area and mean perimeter of the first n turns (handbook: N·A, N·P). [m², m]"""
+    ws, hs = _turn_sides(spec, n)
+    return float(np.mean(ws * hs)), float(np.mean(2 * (ws + hs)))
+
+
+def _path_length(starts, ends) -> float:
+    return float(np.linalg.norm(np.asarray(ends) - np.asarray(starts), axis=1).sum())
+
+
+# ------------------------------------------------------------------------------------------------
+# The study
+# ------------------------------------------------------------------------------------------------
+
+
+_SRC_QS_L = "partial-inductance sum of the tap's current path incl. leads (Grover 1946, Ruehli 1972)"
+_SRC_QS_RR = "magnetic moment of the current path, η0 k⁴ |A|² / 6π"
+_SRC_HB_RR = "Balanis 2016 ch. 5, 320π⁴(NA/λ²)², mean turn area"
+
+
+@dataclass(frozen=True)
+class _TapFormulas:
+    """The frequency-independent parts of one tap's quasi-static and handbook values."""
+
+    turns: int
+    l_qs: float
+    l_hb: float
+    src_hb: str
+    l_sheet: float | None
+    area_vector_m2: np.ndarray
+    mean_area_m2: float
+    mean_perimeter_m: float
+    path_length_m: float
+    winding_length_m: float
+    proximity_factor: float
+
+
+def _tap_formulas(spec, sweep: SweepResult, i: int) -> _TapFormulas:
+    geom = sweep.geometry
+    n = sweep.tap_turns[i]
+    starts, ends = geom.current_path(i)
+    l_hb, src_hb = _handbook_inductance(spec, n)
+    sheet = None
+    if spec.winding.style == "stacked" and n > 1:
+        sheet = float(reference.inductance_square_coil_grover1946(
+            0.5 * (spec.frame.width_m + spec.frame.height_m), n, n * spec.winding.pitch_m))
+    area, perimeter = _turn_area_and_perimeter(spec, n)
+    return _TapFormulas(
+        turns=n, l_qs=float(sweep.quasi_static_inductance_h[i]), l_hb=l_hb, src_hb=src_hb, l_sheet=sheet,
+        area_vector_m2=magnetic_moment_area_m2(starts, ends), mean_area_m2=area, mean_perimeter_m=perimeter,
+        path_length_m=_path_length(starts, ends), winding_length_m=winding_length_to_turn(geom, n),
+        proximity_factor=float(proximity_factors(geom)[i]))
+
+
+def _formula_resistances(sweep: SweepResult, i: int, tf: _TapFormulas, f: float) -> dict:
+    """Quasi-static and handbook loss and radiation resistances of tap i at f. [Ω]"""
+    geom = sweep.geometry
+    rho = sweep.resistivity_ohm_m
+    image = 2.0 if sweep.environment.ground == "perfect" else 1.0  # h ≪ λ, horizontal moment
+    rr_hb, warn = _quietly(reference.radiation_resistance_small_loop, tf.mean_area_m2, f, tf.turns,
+                           tf.mean_perimeter_m)
+    out = {"rr_qs": image * radiation_resistance_moment(tf.area_vector_m2, f), "rr_hb": image * float(rr_hb),
+           "warn": warn, "qs_skin": 0.0, "hb_skin": 0.0, "prox": 0.0, "hb_prox": 0.0}
+    if rho is not None:
+        r_per_m = float(reference.resistance_per_length_round_wire(geom.wire_radius_m, f, rho))
+        rs_surface = float(np.sqrt(np.pi * f * reference.MU0 * rho))
+        out["qs_skin"] = r_per_m * tf.path_length_m
+        out["hb_skin"] = tf.turns * tf.mean_perimeter_m * rs_surface / (2 * np.pi * geom.wire_radius_m)
+        out["prox"] = float(proximity_resistance(geom, f, rho)[0, i, i])
+        out["hb_prox"] = out["hb_skin"] * (1 + tf.proximity_factor)
+    return out
+
+
+def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lossy, lossless,
+                      agt: float | None) -> list[Check]:
+    """L, radiation resistance, wire loss and Q of tap i at one MoM frequency."""
+    n = tf.turns
+    w = 2 * np.pi * f
+    cap = sweep.model.capacitance_f
+    ground = sweep.environment.ground
+    perfect = ground == "perfect"
+    ok_l = lossy is not None and not isinstance(lossy, SolverError)
+    ok_o = lossless is not None and not isinstance(lossless, SolverError)
+    zs_l = _series(np.linalg.inv(lossy.z), cap, f)[i, i] if ok_l else None
+    zs_o = _series(np.linalg.inv(lossless.z), cap, f)[i, i] if ok_o else None
+    fr = _formula_resistances(sweep, i, tf, f)
+    rows = []
+    # Inductance of the series branch
+    l_app = lossy.z[i, i].imag / w if ok_l else None
+    rows.append(_check("L", "H", n, f, None if zs_l is None else zs_l.imag / w, tf.l_qs, tf.l_hb,
+                       "MoM, series branch (fitted shunt C removed)", _SRC_QS_L, tf.src_hb,
+                       note="" if l_app is None else f"apparent X/ω = {l_app * 1e6:.3f} µH"))
+    # Radiation resistance: free space; doubled by a perfect ground; real ground adds its loss
+    r_in0 = None if zs_o is None else zs_o.real
+    if ground == "real":
+        flag, note = None, ("lossless wire over real ground: radiation plus ground loss, which the "
+                            "free-space formulas do not have")
+        if r_in0 is not None and r_in0 < GROUND_RESOLUTION_OHM:
+            flag = BELOW_RESOLUTION
+            note = (f"lossless-wire input resistance {'negative' if r_in0 < 0 else 'below 0.1 Ω'} over real "
+                    f"ground: not resolved by the solver (ground-loss increments below "
+                    f"~{GROUND_RESOLUTION_OHM} Ω are noise)")
+            r_in0 = None
+        rows.append(Check("R_rad+ground", "ohm", n, f, r_in0, None, None, "MoM, lossless wire, series branch",
+                          None, None, None, None, None, flag=flag, note=note))
+    else:
+        tail = " × 2 (image)" if perfect else ""
+        rows.append(_check("R_rad", "ohm", n, f, r_in0, fr["rr_qs"], fr["rr_hb"],
+                           "MoM, lossless wire, series branch" + (" over perfect ground" if perfect else ""),
+                           _SRC_QS_RR + tail, _SRC_HB_RR + tail, note="; ".join(fr["warn"])))
+        if agt is not None and r_in0 is not None and not perfect:
+            rows.append(_check("R_rad far field", "ohm", n, f, agt * r_in0, fr["rr_qs"], fr["rr_hb"],
+                               "MoM far field: AGT × lossless input resistance", _SRC_QS_RR, _SRC_HB_RR,
+                               note=f"average gain {agt:.4f}"))
+    # Wire loss: skin effect only (what NEC models), then with the proximity effect
+    rho = sweep.resistivity_ohm_m
+    if rho is not None:
+        r_loss = zs_l.real - zs_o.real if (zs_l is not None and zs_o is not None) else None
+        rows.append(_check(
+            "R_loss skin", "ohm", n, f, r_loss, fr["qs_skin"], fr["hb_skin"],
+            "MoM: lossy − lossless series resistance (NEC conductivity load: skin effect only)",
+            "exact round-wire skin effect (Ramo et al. 1994 sec. 5.6) × length of the current path",
+            "surface resistance √(πfμ0ρ)/(2πa) × N × mean turn perimeter (no leads)",
+            note=f"current path {tf.path_length_m:.3f} m, of which winding {tf.winding_length_m:.3f} m"))
+        rows.append(_check(
+            "R_loss skin+prox", "ohm", n, f, None if r_loss is None else r_loss + fr["prox"],
+            fr["qs_skin"] + fr["prox"], fr["hb_prox"],
+            "MoM skin loss + proximity term of simloop.losses (as tune/couple use)",
+            "exact skin effect × path length + Smith 1972 proximity factor on the winding",
+            "Smith 1972: (N P/(2πa)) R_s (1 + R_p/R_0)",
+            note=f"R_p/R_0 = {tf.proximity_factor:.4f} for {n} turns at c/a = "
+                 f"{sweep.geometry.pitch_m / (2 * sweep.geometry.wire_radius_m):.2f}"))
+    # Q of the tuned circuit: ωL/R_s of the series branch
+    q_note = "MoM Q includes the ground loss; the formulas do not" if ground == "real" else ""
+    ok_q = zs_l is not None and zs_l.real > 0
+    rows.append(_check("Q skin", "-", n, f, zs_l.imag / zs_l.real if ok_q else None,
+                       w * tf.l_qs / (fr["qs_skin"] + fr["rr_qs"]), w * tf.l_hb / (fr["hb_skin"] + fr["rr_hb"]),
+                       "MoM series branch, ωL/R_s (skin effect only)",
+                       "ωL_qs / (skin loss + radiation), quasi-static",
+                       "ωL_hb / (surface-resistance loss + Balanis R_rad)", note=q_note))
+    if rho is not None:
+        rows.append(_check("Q skin+prox", "-", n, f, zs_l.imag / (zs_l.real + fr["prox"]) if ok_q else None,
+                           w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
+                           w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
+                           "MoM series branch + proximity term (used by tune/couple)",
+                           "ωL_qs / (skin + proximity loss + radiation), quasi-static",
+                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)", note=q_note))
+    return rows
+
+
+def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[Check]:
+    """The Q tune uses, at the bottom, middle and top of the band: fitted model + proximity."""
+    band = [spec.sweep.start_hz, 0.5 * (spec.sweep.start_hz + spec.sweep.stop_hz), spec.sweep.stop_hz]
+    r_model = sweep.model.series_resistance(band)[:, i, i]
+    rows = []
+    for b, f in enumerate(band):
+        w = 2 * np.pi * f
+        fr = _formula_resistances(sweep, i, tf, f)
+        r_tot = r_model[b] + fr["prox"]
+        rows.append(_check("Q tune", "-", tf.turns, f, w * sweep.inductance_h[i] / r_tot if r_tot > 0 else None,
+                           w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
+                           w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
+                           "fitted MoM model + proximity term: ωL0/(R_s + R_prox), what tune uses",
+                           "ωL_qs / (skin + proximity loss + radiation), quasi-static",
+                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)"))
+    return rows
+
+
+def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
+    """Self-resonance by direct MoM either side of the model's prediction, and Medhurst's."""
+    f_model = float(sweep.self_resonance_hz[i])
+    srf_mom, note = None, ""
+    if np.isfinite(f_model):
+        lo_f, hi_f = f_model * (1 - SRF_BRACKET), f_model * (1 + SRF_BRACKET)
+        a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < 1e-6), None)
+        b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < 1e-6), None)
+        if a is None or b is None or isinstance(a, SolverError) or isinstance(b, SolverError):
+            note = "direct MoM solves either side of the model's resonance missing or failed"
+        else:
+            g = [2 * np.pi * s.frequency_hz * (1 / s.z[i, i]).imag for s in (a, b)]  # ω·Im Y_in ≈ ω²C − 1/L
+            w2 = [(2 * np.pi * s.frequency_hz) ** 2 for s in (a, b)]
+            if g[0] < 0 < g[1]:
+                srf_mom = float(np.sqrt(w2[0] - g[0] * (w2[1] - w2[0]) / (g[1] - g[0])) / (2 * np.pi))
+                note = f"fitted model: {f_model / 1e6:.4f} MHz"
+            else:
+                note = (f"no resonance between {lo_f / 1e6:.3f} and {hi_f / 1e6:.3f} MHz in direct MoM: the "
+                        f"model's resonance ({f_model / 1e6:.3f} MHz) is off by more than {SRF_BRACKET:.0%}")
+    else:
+        note = "no self-resonance within the model's reach"
+    hb_srf = None
+    if spec.winding.style == "stacked" and spec.winding.turns > 1:
+        big_n = spec.winding.turns
+        d_eq = 2 * (spec.frame.width_m + spec.frame.height_m) / np.pi
+        c_med, warn = _quietly(reference.self_capacitance_medhurst1947, big_n * spec.winding.pitch_m, d_eq)
+        l_full, _ = _handbook_inductance(spec, big_n)
+        hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
+        note += (f"; Medhurst C = {float(c_med) * 1e12:.1f} pF for the whole winding as a solenoid of equal "
+                 f"perimeter (REFERENCES §5: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
+    return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
+                  "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
+                  "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, note=note)
+
+
+def _average_gains(ff, sweep: SweepResult, f: float):
+    """AGT of each tap driven alone (others open), by superposition of the shorted excitations."""
+    if isinstance(ff, SolverError):
+        return [], {}, [f"average gain test not run: {ff}"]
+    rows, by_tap, notes = [], {}, []
+    z = np.linalg.inv(ff.y_raw)  # as solved, not symmetrised: the exact open-circuit drive
+    for i, n in enumerate(sweep.tap_turns):
+        v = z[:, i]  # port voltages for 1 A into port i and none into the others
+        e_t = np.tensordot(v, ff.e_theta_v, axes=1)
+        e_p = np.tensordot(v, ff.e_phi_v, axes=1)
+        p_in = 0.5 * float(z[i, i].real)  # ½ Re(V I*), I = 1 A
+        if p_in <= 0:
+            notes.append(f"tap {n}: lossless input resistance {z[i, i].real:.3e} Ω is not positive; no average gain")
+            continue
+        agt, p_rad = average_gain(e_t, e_p, ff.theta_deg, ff.phi_deg, p_in)
+        rows.append(AverageGain(n, f, agt, p_rad, p_in, float(z[i, i].real), AGT_ACCEPT[0] <= agt <= AGT_ACCEPT[1]))
+        by_tap[i] = agt
+    return rows, by_tap, notes
+
+
+def _check_frequencies(sweep: SweepResult) -> list[float]:
+    fit = np.sort(np.asarray(sweep.model.fit_hz, dtype=float))
+    picks = [fit[0], fit[len(fit) // 2], fit[-1]]
+    out = []
+    for f in picks:
+        if all(abs(f / g - 1) > 1e-9 for g in out):
+            out.append(float(f))
+    return out
+
+
+def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
+                 cache: SolveCache | None = None, progress=None,
+                 convergence: bool = True) -> ValidationResult:
+    """Validate a sweep: MoM against the quasi-static model and handbook formulas, per tap.
+
+    Parameters
+    ----------
+    spec : simloop.spec.Spec
+    sweep : SweepResult
+        The sweep of the same spec (its mesh, fitted model and environment are re-used).
+    workers : int, optional
+        Worker processes for the extra MoM solves.
+    cache : SolveCache, optional
+        Re-uses the sweep's solves (the fit-window frequencies are checked again) and stores the
+        new ones.
+    progress : callable, optional
+        ``progress(stage, done, total)``.
+    convergence : bool
+        Rerun the MoM on a coarser and a finer mesh.
+
+    Returns
+    -------
+    ValidationResult
+    """
+    t_start = time.monotonic()
+    geom, mesh, env = sweep.geometry, sweep.mesh, sweep.environment
+    rho = sweep.resistivity_ohm_m
+    lossless_env = dataclasses.replace(env, wire_conductivity_s_m=None)
+    free_lossless = Environment(wire_conductivity_s_m=None)
+    ground = env.ground
+    notes: list[str] = []
+    freqs = _check_frequencies(sweep)
+
+    # --- Every extra MoM solve, planned up front and run in one worker pool -----------------
+    requests: list[SolveRequest] = []
+    index: dict = {}
+
+    def add(m, e, f, kind="ports"):
+        key = (id(m), e, round(float(f), 3), kind)
+        if key not in index:
+            index[key] = len(requests)
+            requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
+        return index[key]
+
+    agt_f = freqs[-1]
+    i_lossy = {f: add(mesh, env, f) for f in freqs}  # the sweep's window solves: cache hits
+    i_ff = add(mesh, free_lossless, agt_f, "far_field")
+    if rho is None:
+        i_lossless = dict(i_lossy)
+    else:
+        i_lossless = {f: add(mesh, lossless_env, f) for f in freqs
+                      if not (ground == "free-space" and f == agt_f)}
+    # Direct MoM self-resonance: bracket either side of each distinct model prediction.
+    srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
+    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
+    i_srf: dict[float, int] = {}
+    for f in srf_model[np.isfinite(srf_model)]:
+        for g in (f * (1 - SRF_BRACKET), f * (1 + SRF_BRACKET)):
+            if g >= f5 and all(abs(g / b - 1) > 1e-6 for b in i_srf):
+                i_srf[float(g)] = add(mesh, env, g)
+    plan = _convergence_plan(sweep) if convergence else None
+    if plan is not None:
+        notes += plan["notes"]
+        i_conv = {label: add(m, env, plan["frequency_hz"]) for label, m in plan["meshes"]}
+    results = solve_many(requests, workers=workers, cache=cache,
+                         progress=(lambda d, t: progress("validate", d, t)) if progress else None)
+    lossy = {f: results[j] for f, j in i_lossy.items()}
+    ff = results[i_ff]
+    lossless = {f: results[j] for f, j in i_lossless.items()}
+    if ground == "free-space" and rho is not None and not isinstance(ff, SolverError):
+        lossless[agt_f] = ff  # the same lossless free-space factorisation
+    srf_solves = {g: results[j] for g, j in i_srf.items()}
+    failed = sorted({str(r) for r in results if isinstance(r, SolverError)})
+    notes += [f"solve failed, checks that need it are omitted: {m}" for m in failed]
+
+    # --- Rows ---------------------------------------------------------------------------------
+    agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f)
+    notes += agt_notes
+    checks: list[Check] = []
+    for i, n in enumerate(sweep.tap_turns):
+        tf = _tap_formulas(spec, sweep, i)
+        l0_note = f"sweep error estimate ±{sweep.inductance_error[i]:.1%}"
+        if tf.l_sheet is not None:
+            l0_note += f"; bare current-sheet formula without the round-wire correction: {tf.l_sheet * 1e6:.3f} µH"
+        checks.append(_check("L0", "H", n, None, sweep.inductance_h[i], tf.l_qs, tf.l_hb,
+                             "fitted MoM model (sweep), L0", _SRC_QS_L, tf.src_hb, note=l0_note))
+        for f in freqs:
+            checks += _frequency_checks(sweep, i, tf, f, lossy.get(f), lossless.get(f),
+                                        agt_by_tap.get(i) if f == agt_f else None)
+        checks += _band_q_checks(spec, sweep, i, tf)
+        checks.append(_srf_check(spec, sweep, i, srf_solves))
+
+    if ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
+        notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
+                     "below the solver's resolution: radiation resistance not validated there; the "
+                     "average gain test ran in free space")
+
+    # --- Mesh convergence --------------------------------------------------------------------
+    sweep_run = _mesh_run("sweep", mesh, geom, spec)
+    meshes: list[MeshRun] = []
+    conv: list[Convergence] = []
+    f_conv = None
+    if plan is not None:
+        f_conv = plan["frequency_hz"]
+        meshes, conv, conv_notes = _convergence(spec, sweep, plan, {lb: results[j] for lb, j in i_conv.items()})
+        notes += conv_notes
+    elif convergence:
+        notes.append("mesh convergence needs three solvable meshes; not assessed")
+
+    checks_t = tuple(checks)
+    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence, plan)
+    return ValidationResult(
+        name=sweep.name,
+        tap_turns=tuple(sweep.tap_turns),
+        style=spec.winding.style,
+        ground=ground,
+        checks=checks_t,
+        meshes=tuple(meshes),
+        convergence=tuple(conv),
+        average_gain=tuple(agt_rows),
+        verdict=verdict,
+        tap_verdicts=tap_verdicts,
+        check_frequencies_hz=np.array(freqs),
+        convergence_frequency_hz=f_conv,
+        agt_frequency_hz=None if isinstance(ff, SolverError) else agt_f,
+        inductance_h=sweep.inductance_h,
+        inductance_error=np.asarray(sweep.inductance_error, dtype=float),
+        quasi_static_inductance_h=np.asarray(sweep.quasi_static_inductance_h, dtype=float),
+        self_resonance_hz=srf_model,
+        sweep_mesh=sweep_run,
+        notes=tuple(notes + ([sweep.window_note] if sweep.window_note else [])),
+        seconds=time.monotonic() - t_start,
+    )
+
+
+def _convergence_plan(sweep: SweepResult) -> dict | None:
+    """Coarser and finer meshes and one common frequency above every mesh's floor."""
+    geom = sweep.geometry
+    notes = []
+    candidates = [("coarse", build_mesh(geom, COARSE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality)),
+                  ("sweep", sweep.mesh),
+                  ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
+    for label, m in candidates:
+        if m.shortest_m < 2 * m.radius_m or m.n_segments > 20000:
+            return None
+    srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
+    f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
+    f5 = max(m.floor_frequency_hz(FLOOR_ABSOLUTE) for _, m in candidates)
+    near_srf = False
+    if srf is None or f7 <= 0.6 * srf:
+        f_c = f7
+    else:
+        f_c = max(f5, 0.6 * srf)
+        near_srf = f_c > 0.6 * srf * (1 + 1e-9)
+        notes.append(f"mesh convergence compared at {f_c / 1e6:.3f} MHz = {f_c / srf:.2f} × self-resonance: "
+                     f"the finest mesh's floor (7e-5 λ) lies at {f7 / 1e6:.3f} MHz, "
+                     + ("so the floor was relaxed towards 5e-5 λ" if f_c < f7 else "")
+                     + (" and the shunt-capacitance correction is large there" if near_srf else ""))
+    return {"meshes": candidates, "frequency_hz": float(f_c), "near_srf": near_srf,
+            "srf_ratio": None if srf is None else f_c / srf, "notes": notes}
+
+
+def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
+    """L and R of each tap on the three meshes at the plan's frequency."""
+    geom, model = sweep.geometry, sweep.model
+    f_c = plan["frequency_hz"]
+    failed = [f"{lb} mesh: {r}" for lb, r in solved.items() if isinstance(r, SolverError)]
+    if failed:
+        return [], [], [f"mesh convergence not assessed, a solve failed: {'; '.join(failed)}"]
+    runs = [_mesh_run(label, m, geom, spec) for label, m in plan["meshes"]]
+    results = [solved[label] for label, _ in plan["meshes"]]
+    segs = np.array([r.winding_segment_m for r in runs])
+    w = 2 * np.pi * f_c
+    conv = []
+    zs = [_series(s.y, model.capacitance_f, f_c) for s in results]
+    for i, n in enumerate(sweep.tap_turns):
+        l_s = np.array([z[i, i].imag / w for z in zs])
+        r_s = np.array([z[i, i].real for z in zs])
+        l_app = np.array([s.z[i, i].imag / w for s in results])
+        spread_l = float((l_s.max() - l_s.min()) / l_s[1])
+        spread_r = float((r_s.max() - r_s.min()) / abs(r_s[1]))
+        est, order, reason = richardson(segs, l_s)
+        conv.append(Convergence(tap=n, frequency_hz=f_c, inductance_h=l_s, apparent_inductance_h=l_app,
+                                resistance_ohm=r_s, inductance_spread=spread_l, resistance_spread=spread_r,
+                                extrapolated_inductance_h=est, observed_order=order, note=reason))
+    return runs, conv, []
+
+
+def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None):
+    """ok | caution | unreliable, with the reasons in words (see the README)."""
+    rank = {"ok": 0, "caution": 1, "unreliable": 2}
+    overall: list[tuple[str, str]] = []
+    per_tap: dict[int, list[tuple[str, str]]] = {n: [] for n in sweep.tap_turns}
+
+    for r in sweep.rules:
+        if r.status == "fail":
+            overall.append(("unreliable", f"mesh rule '{r.name}' fails: {r.detail}"))
+        elif r.status == "warn" and r.name in _MESH_RULES_CAUTION:
+            overall.append(("caution", f"mesh rule '{r.name}' warns: {r.detail}"))
+    worst_asym = max((s.asymmetry for s in sweep.solves), default=0.0)
+    if worst_asym > ASYMMETRY_LIMIT:
+        overall.append(("unreliable", f"port-matrix reciprocity defect {worst_asym:.1%} exceeds "
+                                      f"{ASYMMETRY_LIMIT:.0%}"))
+    elif worst_asym > ASYMMETRY_CAUTION:
+        overall.append(("caution", f"port-matrix reciprocity defect {worst_asym:.1%} (above "
+                                   f"{ASYMMETRY_CAUTION:.0%})"))
+    srf_low = np.nanmin(sweep.self_resonance_hz) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
+    top = float(np.max(sweep.model.fit_hz))
+    if srf_low is not None and top > 1.05 * WINDOW_TOP * srf_low:
+        overall.append(("caution", f"the sweep fitted its model up to {top / srf_low:.2f} × self-resonance "
+                                   f"(above {WINDOW_TOP}), so its model points are less certain"))
+
+    for n in sweep.tap_turns:
+        rows = [c for c in checks if c.tap == n]
+        l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
+        if l_rows:
+            worst = max(l_rows, key=lambda c: abs(c.rel_diff_mom))
+            d = worst.rel_diff_mom
+            where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
+            text = f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum"
+            hint = ("; a lower tap: the open turns and leads beyond it join its current path at "
+                    "junctions, where NEC is biased (see the README)") if n != sweep.tap_turns[-1] else ""
+            if abs(d) > L_CAUTION:
+                per_tap[n].append(("unreliable", text + f" (beyond {L_CAUTION:.0%})" + hint))
+            elif abs(d) > L_OK:
+                per_tap[n].append(("caution", text + f" (beyond {L_OK:.0%})" + hint))
+        loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
+        if loss:
+            worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
+            if abs(worst.rel_diff_mom) > R_LOSS_CAUTION:
+                per_tap[n].append(("caution", f"tap {n}: MoM wire loss is {worst.rel_diff_mom:+.1%} from the "
+                                              f"exact skin-effect loss of its path at "
+                                              f"{worst.frequency_hz / 1e6:.3f} MHz"))
+        srf = next((c for c in rows if c.quantity == "SRF"), None)
+        if srf is not None and np.isfinite(sweep.self_resonance_hz[sweep.tap_turns.index(n)]):
+            f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
+            if srf.mom is None:
+                per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
+            else:
+                # An SRF misfit δ moves the model's |Z| at the top of the band by about
+                # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
+                delta = srf.mom / f_model - 1
+                x = min((sweep.frequencies_hz.max() / f_model) ** 2, 0.99)
+                in_band = 2 * abs(delta) * x / (1 - x)
+                if in_band > SRF_CAUTION:
+                    per_tap[n].append(("caution", f"tap {n}: direct MoM self-resonance {srf.mom / 1e6:.3f} MHz is "
+                                                  f"{delta:+.1%} from the fitted model's, which moves the model's "
+                                                  f"impedance at the top of the band by about {in_band:.1%}"))
+    for a in agt_rows:
+        if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
+            per_tap[a.tap].append(("unreliable", f"tap {a.tap}: average gain {a.agt:.3f}: the MoM input "
+                                                 f"resistance disagrees with its own far field"))
+        elif not a.accepted:
+            per_tap[a.tap].append(("caution", f"tap {a.tap}: average gain {a.agt:.3f} outside "
+                                              f"{AGT_ACCEPT[0]}–{AGT_ACCEPT[1]}: its input resistance is "
+                                              f"inconsistent with its far field by {a.agt - 1:+.1%} (radiation "
+                                              f"resistance uncertain by that much)"))
+    if convergence_run and conv:
+        if plan["near_srf"]:
+            overall.append(("caution", f"mesh convergence could only be compared at "
+                                       f"{plan['srf_ratio']:.2f} × self-resonance, where the spreads are "
+                                       f"less certain"))
+        for c in conv:
+            text = (f"tap {c.tap}: inductance spread {c.inductance_spread:.1%} over the coarse, sweep and "
+                    f"fine meshes")
+            if c.inductance_spread > SPREAD_CAUTION:
+                per_tap[c.tap].append(("unreliable", text + f" (beyond {SPREAD_CAUTION:.0%})"))
+            elif c.inductance_spread > SPREAD_OK:
+                per_tap[c.tap].append(("caution", text + f" (beyond {SPREAD_OK:.0%})"))
+            if c.resistance_spread > R_SPREAD_CAUTION:
+                per_tap[c.tap].append(("caution", f"tap {c.tap}: resistance spread {c.resistance_spread:.1%} "
+                                                  f"over the meshes (Q less certain)"))
+            if c.extrapolated_inductance_h is not None:
+                off = c.inductance_h[1] / c.extrapolated_inductance_h - 1
+                if abs(off) > L_OK:
+                    per_tap[c.tap].append(("caution", f"tap {c.tap}: the sweep mesh's L is {off:+.1%} from the "
+                                                      f"extrapolated zero-segment value"))
+    elif convergence_run:
+        overall.append(("caution", "mesh convergence could not be assessed"))
+    else:
+        overall.append(("caution", "mesh convergence not checked (--no-convergence)"))
+
+    def status(items):
+        return max((s for s, _ in items), key=rank.get, default="ok")
+
+    tap_verdicts = {n: Verdict(status(items), tuple(t for _, t in items)) for n, items in per_tap.items()}
+    everything = overall + [x for items in per_tap.values() for x in items]
+    reasons = tuple(t for s, t in sorted(everything, key=lambda x: -rank[x[0]]))
+    st = status(everything)
+    if st == "ok":
+        reasons = ("every tap's MoM inductance is within 2 % of the quasi-static sum, the mesh-convergence "
+                   "spread is below 2 %, the average gain lies in 0.95–1.05 and no mesh rule warns",)
+    return Verdict(st, reasons), tap_verdicts
