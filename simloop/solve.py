@@ -149,11 +149,10 @@ def _count(getter) -> int:
     return i
 
 
-def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
-    """Run in a worker: one fill + LU, one back-substitution per port. Returns plain data."""
+def _context(mesh: dict, env: dict):
+    """A nec_context holding the mesh, the ground and the wire loss, in the order nec2++ needs."""
     import PyNEC  # the only import of PyNEC in the project
 
-    t0 = time.perf_counter()
     shift = env["height_m"] if env["ground"] != "free-space" else 0.0  # NEC's ground is z = 0
     ctx = PyNEC.nec_context()
     geo = ctx.get_geometry()
@@ -171,8 +170,16 @@ def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
         ctx.gn_card(2, 0, float(env["permittivity"]), float(env["conductivity_s_m"]), 0, 0, 0, 0)
     if env["wire_conductivity_s_m"] is not None:
         ctx.ld_card(5, 0, 0, 0, float(env["wire_conductivity_s_m"]), 0, 0)
+    return ctx
+
+
+def _drive_ports(ctx, ports, frequency_hz: float, after_each=None) -> np.ndarray:
+    """1 V at each port in turn, the others shorted: one fill + LU, then a back-substitution each.
+
+    ``after_each(j)`` runs while excitation j is the current solution (for patterns, near fields).
+    Returns the raw short-circuit admittance matrix (column j: port currents for 1 V at port j).
+    """
     ctx.fr_card(0, 1, frequency_hz / 1e6, 0)  # MHz; one frequency per fr_card
-    ports = mesh["port_tags"]
     k = len(ports)
     y = np.zeros((k, k), dtype=complex)
     index = None
@@ -183,20 +190,30 @@ def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
         if index is None:
             tags = np.asarray(sc.get_current_segment_tag())
             index = [int(np.flatnonzero(tags == t)[0]) for t in ports]
-        current = np.asarray(sc.get_current())
-        y[:, j] = current[index]
-    seconds = time.perf_counter() - t0
-    return {"y_re": y.real.tolist(), "y_im": y.imag.tolist(), "seconds": seconds}
+        y[:, j] = np.asarray(sc.get_current())[index]
+        if after_each is not None:
+            after_each(j)
+    return y
 
 
-def _worker(conn, mesh, env, frequency_hz):
+def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
+    """Run in a worker: the port admittance matrix at one frequency, as plain data."""
+    t0 = time.perf_counter()
+    y = _drive_ports(_context(mesh, env), mesh["port_tags"], frequency_hz)
+    return {"y_re": y.real.tolist(), "y_im": y.imag.tolist(), "seconds": time.perf_counter() - t0}
+
+
+def _worker(conn, function: str, *args):
+    """Body of a forked solver process: run ``function`` of this module, send the result back.
+
+    The function is looked up by name at run time, so a test can replace it before the fork.
+    """
     import faulthandler
 
     faulthandler.disable()  # a crash of nec2++ is reported by the parent, not dumped by the child
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     try:
-        out = _solve_ports(mesh, env, frequency_hz)
-        conn.send(("ok", out))
+        conn.send(("ok", globals()[function](*args)))
     except BaseException as exc:  # noqa: BLE001 - reported to the parent as data
         conn.send(("error", f"{type(exc).__name__}: {exc}"))
     finally:
@@ -270,74 +287,12 @@ def solve_ports(mesh, env: Environment, frequencies_hz, *, workers: int | None =
     list
         A :class:`PortSolution` per frequency, or the :class:`SolverError` that frequency raised.
     """
-    payload = mesh.as_payload()
-    env_payload = env.as_payload()
-    digest = mesh.digest()
-    freqs = [float(f) for f in frequencies_hz]
-    for f in freqs:
-        validate_payload(payload, f)
-    workers = max(1, workers or os.cpu_count() or 1)
-    timeout_s = timeout_s or (20 * estimated_seconds(mesh.n_segments) + 60)
-    results: list = [None] * len(freqs)
-    todo = []
-    for i, f in enumerate(freqs):
-        hit = cache.get(cache.key(digest, env_payload, f)) if cache else None
-        if hit is not None:
-            y = np.array(hit["y_re"]) + 1j * np.array(hit["y_im"])
-            results[i] = PortSolution(f, y, hit["seconds"], cached=True)
-        else:
-            todo.append(i)
-    done = len(freqs) - len(todo)
-    if progress:
-        progress(done, len(freqs))
-    ctx = mp.get_context("fork")
-    running: dict = {}  # reader -> (index, process, started)
-    while todo or running:
-        while todo and len(running) < workers:
-            i = todo.pop(0)
-            reader, writer = ctx.Pipe(duplex=False)
-            proc = ctx.Process(target=_worker, args=(writer, payload, env_payload, freqs[i]), daemon=True)
-            proc.start()
-            writer.close()
-            running[reader] = (i, proc, time.monotonic())
-        ready = wait(list(running), timeout=1.0)
-        now = time.monotonic()
-        for reader in list(running):
-            i, proc, started = running[reader]
-            if reader in ready:
-                try:
-                    status, out = reader.recv()
-                except EOFError:
-                    proc.join()
-                    status, out = "error", f"the solver process died (exit code {proc.exitcode})"
-                proc.join()
-            elif now - started > timeout_s:
-                proc.kill()
-                proc.join()
-                status, out = "error", f"no answer within {timeout_s:.0f} s (killed)"
-            else:
-                continue
-            reader.close()
-            del running[reader]
-            f = freqs[i]
-            if status == "ok":
-                y = np.array(out["y_re"]) + 1j * np.array(out["y_im"])
-                if not np.all(np.isfinite(y)):
-                    results[i] = SolverError(f"{f / 1e6:.6g} MHz: the solver returned NaN")
-                else:
-                    results[i] = PortSolution(f, y, out["seconds"])
-                    if cache:
-                        cache.put(cache.key(digest, env_payload, f), out)
-            else:
-                results[i] = SolverError(f"{f / 1e6:.6g} MHz: {out}")
-            done += 1
-            if progress:
-                progress(done, len(freqs))
-    return results
+    return solve_many([SolveRequest(mesh, env, float(f)) for f in frequencies_hz], workers=workers,
+                      timeout_s=timeout_s, cache=cache, progress=progress)
 
 
 # ------------------------------------------------------------------------------------------------
-# Far field (average gain test). Appended; the port solver above is unchanged.
+# Far field (average gain test): the same factorisation, one pattern per port excitation.
 # ------------------------------------------------------------------------------------------------
 
 
@@ -381,29 +336,6 @@ class FarFieldSolution:
         return 0.5 * (z + z.T)
 
 
-def _context(mesh: dict, env: dict):
-    """A nec_context with the mesh, the ground and the wire loss (same cards as _solve_ports)."""
-    import PyNEC  # the only module that imports PyNEC
-
-    shift = env["height_m"] if env["ground"] != "free-space" else 0.0
-    ctx = PyNEC.nec_context()
-    geo = ctx.get_geometry()
-    radius = mesh["radius_m"]
-    for tag, (p, q, n) in enumerate(zip(mesh["starts"], mesh["ends"], mesh["segments"]), start=1):
-        geo.wire(tag, int(n), float(p[0]), float(p[1]), float(p[2]) + shift,
-                 float(q[0]), float(q[1]), float(q[2]) + shift, float(radius), 1.0, 1.0)
-    ctx.geometry_complete(0)  # exactly once
-    if env["ground"] == "free-space":
-        ctx.gn_card(-1, 0, 0, 0, 0, 0, 0, 0)
-    elif env["ground"] == "perfect":
-        ctx.gn_card(1, 0, 0, 0, 0, 0, 0, 0)
-    else:
-        ctx.gn_card(2, 0, float(env["permittivity"]), float(env["conductivity_s_m"]), 0, 0, 0, 0)
-    if env["wire_conductivity_s_m"] is not None:
-        ctx.ld_card(5, 0, 0, 0, float(env["wire_conductivity_s_m"]), 0, 0)
-    return ctx
-
-
 def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float) -> dict:
     """Run in a worker: one fill + LU; per port one back-substitution and one full-sphere pattern.
 
@@ -413,24 +345,15 @@ def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float
     """
     t0 = time.perf_counter()
     ctx = _context(mesh, env)
-    ctx.fr_card(0, 1, frequency_hz / 1e6, 0)
     ports = mesh["port_tags"]
     k = len(ports)
     n_theta = int(round(180.0 / step_deg)) + 1
     n_phi = int(round(360.0 / step_deg))
-    y = np.zeros((k, k), dtype=complex)
     e_theta = np.zeros((k, n_phi, n_theta), dtype=complex)
     e_phi = np.zeros((k, n_phi, n_theta), dtype=complex)
-    index = None
-    theta = phi = None
-    for j, tag in enumerate(ports):
-        ctx.ex_card(0, int(tag), 1, 0, 1.0, 0, 0, 0, 0, 0)
-        ctx.xq_card(0)
-        sc = ctx.get_structure_currents(_count(ctx.get_structure_currents) - 1)
-        if index is None:
-            tags = np.asarray(sc.get_current_segment_tag())
-            index = [int(np.flatnonzero(tags == t)[0]) for t in ports]
-        y[:, j] = np.asarray(sc.get_current())[index]
+    angles = {}
+
+    def pattern(j):
         ctx.rp_card(0, n_theta, n_phi, 1, 0, 0, 0, 0.0, 0.0, float(step_deg), float(step_deg), 0.0, 0.0)
         rp = ctx.get_radiation_pattern(_count(ctx.get_radiation_pattern) - 1)
         shape = (rp.get_nphi(), rp.get_ntheta())
@@ -438,8 +361,11 @@ def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float
             raise RuntimeError(f"pattern grid {shape} differs from the requested {(n_phi, n_theta)}")
         e_theta[j] = np.asarray(rp.get_e_theta()).reshape(shape)
         e_phi[j] = np.asarray(rp.get_e_phi()).reshape(shape)
-        theta = np.asarray(rp.get_theta_angles(), dtype=float)
-        phi = np.asarray(rp.get_phi_angles(), dtype=float)
+        angles["theta"] = np.asarray(rp.get_theta_angles(), dtype=float)
+        angles["phi"] = np.asarray(rp.get_phi_angles(), dtype=float)
+
+    y = _drive_ports(ctx, ports, frequency_hz, after_each=pattern)
+    theta, phi = angles["theta"], angles["phi"]
     seconds = time.perf_counter() - t0
     return {
         "y_re": y.real.tolist(), "y_im": y.imag.tolist(),
@@ -448,19 +374,6 @@ def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float
         "e_phi_re": e_phi.real.tolist(), "e_phi_im": e_phi.imag.tolist(),
         "seconds": seconds,
     }
-
-
-def _far_field_worker(conn, mesh, env, frequency_hz, step_deg):
-    import faulthandler
-
-    faulthandler.disable()
-    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-    try:
-        conn.send(("ok", _solve_far_field(mesh, env, frequency_hz, step_deg)))
-    except BaseException as exc:  # noqa: BLE001 - reported to the parent as data
-        conn.send(("error", f"{type(exc).__name__}: {exc}"))
-    finally:
-        conn.close()
 
 
 def _far_field_from(f: float, data: dict, cached: bool) -> FarFieldSolution:
@@ -537,7 +450,7 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
         f = float(r.frequency_hz)
         validate_payload(payload, f)
         if r.kind == "ports":
-            key_env, target, args = env_payload, _worker, (payload, env_payload, f)
+            key_env, args = env_payload, ("_solve_ports", payload, env_payload, f)
             cost = estimated_seconds(r.mesh.n_segments)
         elif r.kind == "far_field":
             if r.env.ground != "free-space":
@@ -546,7 +459,7 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
             if not abs(ratio - round(ratio)) < 1e-9:
                 raise ValueError(f"step_deg = {r.step_deg!r}: 90 / step must be a whole number")
             key_env = {**env_payload, "far_field_step_deg": float(r.step_deg)}
-            target, args = _far_field_worker, (payload, env_payload, f, float(r.step_deg))
+            args = ("_solve_far_field", payload, env_payload, f, float(r.step_deg))
             n_dirs = (int(round(180 / r.step_deg)) + 1) * int(round(360 / r.step_deg))
             cost = estimated_seconds(r.mesh.n_segments) + len(r.mesh.port_tags) * 5e-8 * r.mesh.n_segments * n_dirs
         else:
@@ -557,7 +470,7 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
             results[i] = (PortSolution(f, np.array(hit["y_re"]) + 1j * np.array(hit["y_im"]), hit["seconds"],
                                        cached=True) if r.kind == "ports" else _far_field_from(f, hit, cached=True))
             continue
-        jobs.append((target, args))
+        jobs.append(args)
         where.append(i)
         keys.append(key)
         costs.append(cost)
@@ -594,7 +507,8 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
 
 
 def _run_many(jobs, order, workers, timeout_s, progress, done, total):
-    """Run jobs [(target, args)] in the given order, at most ``workers`` at a time."""
+    """Run jobs (function name, *args) in :func:`_worker` processes in the given order, at most
+    ``workers`` at a time; a crash or a timeout becomes ("error", message) for that job."""
     ctx = mp.get_context("fork")
     out: list = [None] * len(jobs)
     todo = list(order)
@@ -602,9 +516,8 @@ def _run_many(jobs, order, workers, timeout_s, progress, done, total):
     while todo or running:
         while todo and len(running) < workers:
             j = todo.pop(0)
-            target, args = jobs[j]
             reader, writer = ctx.Pipe(duplex=False)
-            proc = ctx.Process(target=target, args=(writer, *args), daemon=True)
+            proc = ctx.Process(target=_worker, args=(writer, *jobs[j]), daemon=True)
             proc.start()
             writer.close()
             running[reader] = (j, proc, time.monotonic())
