@@ -6,6 +6,7 @@ Notebook API::
     spec = simloop.load("geometries/shed-loop.toml")
     result = simloop.sweep(spec)          # SweepResult; result.to_network() is an skrf.Network
     chart = simloop.tune(spec, result)    # TuneResult
+    check = simloop.validate(spec, result)  # ValidationResult
 """
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
@@ -34,4 +35,11 @@ def tune(spec, sweep_result, band="itu-1", field_v_per_m=1e-3):
     return run_tune(spec, sweep_result, band=band, field_v_per_m=field_v_per_m)
 
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep", "tune"]
+def validate(spec, sweep_result, **kwargs):
+    """MoM against the quasi-static model and handbook formulas. See :func:`simloop.validation.run_validate`."""
+    from simloop.validation import run_validate
+
+    return run_validate(spec, sweep_result, **kwargs)
+
+
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep", "tune", "validate"]

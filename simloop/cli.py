@@ -103,13 +103,13 @@ def _run_sweep(args, spec):
         progress.close()
 
 
-def cmd_sweep(args, spec=None) -> int:
+def cmd_sweep(args, spec=None, sweep=None) -> int:
     from simloop.report import write_sweep
     from simloop.spec import load
 
     spec = spec or load(args.spec)
     out = _out_dir(args, spec)
-    result = _run_sweep(args, spec)
+    result = sweep or _run_sweep(args, spec)
     paths = write_sweep(result, out, z0=args.z0)
     if not args.quiet:
         for i, n in enumerate(result.tap_turns):
@@ -165,12 +165,17 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
 
 
 def cmd_demo(args) -> int:
+    """Sweep, tune and validate the bundled demo loop: every output into one folder."""
     from simloop.spec import loads
 
     text = resources.files("simloop").joinpath("data", DEMO_SPEC).read_text()
     spec = loads(text, source=DEMO_SPEC)
     args.out = args.out or str(Path("results") / "demo")
-    return cmd_sweep(args, spec=spec)
+    args.band, args.field, args.no_convergence = "itu-1", 1e-3, False
+    sweep = _run_sweep(args, spec)
+    cmd_sweep(args, spec=spec, sweep=sweep)
+    cmd_tune(args, spec=spec, sweep=sweep)
+    return cmd_validate(args, spec=spec, sweep=sweep)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -206,7 +211,7 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
-    p = sub.add_parser("demo", help="run the bundled demo loop into results/demo/")
+    p = sub.add_parser("demo", help="sweep, tune and validate the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)
     return parser
