@@ -103,13 +103,18 @@ def _run_sweep(args, spec):
         progress.close()
 
 
-def cmd_sweep(args, spec=None, sweep=None) -> int:
-    from simloop.report import write_sweep
+def _spec_out_sweep(args, spec, sweep):
+    """The spec (loaded unless given), the output folder and the sweep (run unless given)."""
     from simloop.spec import load
 
     spec = spec or load(args.spec)
-    out = _out_dir(args, spec)
-    result = sweep or _run_sweep(args, spec)
+    return spec, _out_dir(args, spec), sweep or _run_sweep(args, spec)
+
+
+def cmd_sweep(args, spec=None, sweep=None) -> int:
+    from simloop.report import write_sweep
+
+    spec, out, result = _spec_out_sweep(args, spec, sweep)
     paths = write_sweep(result, out, z0=args.z0)
     if not args.quiet:
         for i, n in enumerate(result.tap_turns):
@@ -129,12 +134,9 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
 
 def cmd_tune(args, spec=None, sweep=None) -> int:
     from simloop.report_tune import format_tune_summary, write_tune
-    from simloop.spec import load
     from simloop.tuning import run_tune
 
-    spec = spec or load(args.spec)
-    out = _out_dir(args, spec)
-    sweep = sweep or _run_sweep(args, spec)
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     result = run_tune(spec, sweep, band=args.band, field_v_per_m=args.field)
     paths = write_tune(result, out)
     if not args.quiet:
@@ -145,12 +147,9 @@ def cmd_tune(args, spec=None, sweep=None) -> int:
 
 def cmd_validate(args, spec=None, sweep=None) -> int:
     from simloop.report_validate import format_validate_table, write_validate
-    from simloop.spec import load
     from simloop.validation import run_validate
 
-    spec = spec or load(args.spec)
-    out = _out_dir(args, spec)
-    sweep = sweep or _run_sweep(args, spec)
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     progress = _Progress(args.quiet)
     try:
         result = run_validate(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress,
