@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import matplotlib
+import matplotlib.ticker
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
@@ -45,6 +46,9 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
     ax_x.legend(fontsize=8, loc="upper left")
     ax_x.grid(alpha=0.3)
     ax_r.set_yscale("log")
+    plain = matplotlib.ticker.FuncFormatter(lambda v, _: f"{v:g}")
+    ax_r.yaxis.set_major_formatter(plain)
+    ax_r.yaxis.set_minor_formatter(plain)
     ax_r.set_ylabel("resistance R [Ω]")
     ax_r.set_xlabel("frequency [MHz]")
     ax_r.grid(alpha=0.3, which="both")
