@@ -181,6 +181,9 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="simloop", description=__doc__.splitlines()[0])
     parser.add_argument("--debug", action="store_true", help="show tracebacks")
     sub = parser.add_subparsers(dest="command", required=True)
+    # --debug is accepted after the command too; SUPPRESS keeps a global --debug from being reset
+    debug = argparse.ArgumentParser(add_help=False)
+    debug.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks")
 
     def common(p, spec=True):
         if spec:
@@ -191,26 +194,26 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
         p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
-    p = sub.add_parser("check", help="build the mesh and print the mesh report")
+    p = sub.add_parser("check", parents=[debug], help="build the mesh and print the mesh report")
     p.add_argument("spec")
     p.set_defaults(func=cmd_check)
-    p = sub.add_parser("sweep", help="tap impedances over the sweep; JSON, CSV, Touchstone, plot")
+    p = sub.add_parser("sweep", parents=[debug], help="tap impedances over the sweep; JSON, CSV, Touchstone, plot")
     common(p)
     p.add_argument("--direct", action="store_true",
                    help="solve every point directly, below the breakdown floor too (flagged unreliable)")
     p.set_defaults(func=cmd_sweep)
-    p = sub.add_parser("tune", help="band coverage per tap, channel tuning chart, bandwidth, tuner voltage")
+    p = sub.add_parser("tune", parents=[debug], help="band coverage per tap, channel tuning chart, bandwidth, tuner voltage")
     common(p)
     p.add_argument("--band", default="itu-1",
                    help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
     p.add_argument("--field", type=float, default=1e-3,
                    help="incident field strength for the tuner voltage [V/m] (default 1 mV/m)")
     p.set_defaults(func=cmd_tune)
-    p = sub.add_parser("validate", help="MoM against handbook formulas and the quasi-static model")
+    p = sub.add_parser("validate", parents=[debug], help="MoM against handbook formulas and the quasi-static model")
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
-    p = sub.add_parser("demo", help="sweep, tune and validate the bundled demo loop into results/demo/")
+    p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)
     return parser

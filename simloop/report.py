@@ -27,10 +27,25 @@ def _num(x) -> float | None:
     return None if not math.isfinite(x) else x
 
 
+def _finite(value):
+    """Non-finite floats become null (JSON has no NaN); everything else is kept."""
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
 def write_json(path: Path, data: dict) -> Path:
-    """Write JSON atomically (temporary file, then rename), so a crash never leaves half a file."""
+    """Write JSON atomically (temporary file, then rename), so a crash never leaves half a file.
+
+    A value that is not a finite number is written as null: a quantity the tool could not
+    determine is reported as absent, never as a number.
+    """
     tmp = path.with_suffix(path.suffix + ".tmp")
-    tmp.write_text(json.dumps(data, indent=1, allow_nan=False) + "\n")
+    tmp.write_text(json.dumps(_finite(data), indent=1, allow_nan=False) + "\n")
     os.replace(tmp, path)
     return path
 

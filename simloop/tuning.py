@@ -474,7 +474,9 @@ def _estimate_taps(spec, sweep: SweepResult, f_ref_hz: float):
     l_est = l_qs * np.interp(n_all, taps, ratio)
     z = sweep.model_z(np.array([f_ref_hz]), proximity=True)[0]
     w = 2 * np.pi * f_ref_hz
-    cs = 1.0 / (w**2 * l0) - tuning_capacitance(np.diag(z), f_ref_hz)
+    # self-capacitance seen at each tap; a small negative value is fit noise on a loop whose
+    # self-resonance lies far above the band, physically it is ≥ 0
+    cs = np.maximum(1.0 / (w**2 * l0) - tuning_capacitance(np.diag(z), f_ref_hz), 0.0)
     k_prod = np.interp(n_all, taps, cs * l0)
     return n_all, l_est, k_prod / l_est
 

@@ -94,3 +94,37 @@ def test_console_script_exit_status(tmp_path):
                           capture_output=True, text=True)
     assert proc.returncode == 2
     assert "winding.turns" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_tune_on_a_single_turn_loop_over_perfect_ground(tmp_path, capsys):
+    # Regression: a loop whose self-resonance lies far above the band gave a slightly negative
+    # fitted self-capacitance, NaN in the tap suggestion and a JSON error that lost the output.
+    text = textwrap.dedent("""
+        name = "one-turn"
+        [frame]
+        width = "0.3 m"
+        height = "0.8 m"
+        [winding]
+        style = "spiral"
+        turns = 1
+        pitch = "8 mm"
+        [wire]
+        gauge = "20 AWG"
+        metal = "aluminium"
+        [taps]
+        turns = [1]
+        [leads]
+        offset = "8 cm"
+        [sweep]
+        start = "1 MHz"
+        stop = "5 MHz"
+        points = 9
+        [ground]
+        kind = "perfect"
+        height = "2 m"
+    """)
+    spec = write_spec(tmp_path, text)
+    out = tmp_path / "res"
+    assert main(["tune", str(spec), "--out", str(out), "--debug"]) == 0
+    data = json.loads((out / "tuning.json").read_text())
+    assert data["gaps_hz"], "one 0.3 x 0.8 m turn (a few µH) cannot reach the MW band with 12-365 pF"
