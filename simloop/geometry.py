@@ -162,6 +162,7 @@ def build_loop(
     tap_turns: tuple[int, ...],
     lead_offset_m: float,
     style: str = "stacked",
+    lead_depths_m: tuple[float, ...] | None = None,
 ) -> LoopGeometry:
     """Build the wire path of a rectangular multi-turn loop with taps and tuner leads.
 
@@ -182,6 +183,9 @@ def build_loop(
         winding, the length of the start terminal's link and the spacing of the lead levels. [m]
     style : {"stacked", "spiral"}
         Winding style.
+    lead_depths_m : tuple of float, optional
+        Depth of each tap's lead; default e·(1 + i). Given explicitly to rebuild one tap's circuit
+        on its own (:func:`single_tap_circuit`). [m]
 
     Returns
     -------
@@ -211,8 +215,9 @@ def build_loop(
     base = start - lead_offset_m * advance
     add(tuple(start), tuple(base), COLLECTOR)
     previous = base
-    for i, n in enumerate(tap_turns):
-        depth = lead_offset_m * (1 + i)
+    if lead_depths_m is None:
+        lead_depths_m = tuple(lead_offset_m * (1 + i) for i in range(len(tap_turns)))
+    for i, (n, depth) in enumerate(zip(tap_turns, lead_depths_m)):
         tap_point = start + n * pitch_m * advance
         drop_end = tap_point + depth * away
         level = base + depth * away
@@ -231,6 +236,29 @@ def build_loop(
         wire_radius_m=float(wire_radius_m),
         style=style,
         pitch_m=float(pitch_m),
+    )
+
+
+def single_tap_circuit(spec, tap_index: int) -> LoopGeometry:
+    """Tap ``tap_index``'s own circuit without anything that hangs open from it.
+
+    The same wire path as the tap's current path in the full loop (its turns, its lead at its own
+    depth, the link and collector down to that depth), but without the turns beyond the tap and the
+    other taps' leads. At low frequency those open wires carry no current, so this circuit has the
+    tap's low-frequency inductance; :mod:`simloop.impedance` uses it to remove the junction bias
+    of the MoM.
+    """
+    n = spec.taps.turns[tap_index]
+    return build_loop(
+        width_m=spec.frame.width_m,
+        height_m=spec.frame.height_m,
+        turns=n,
+        pitch_m=spec.winding.pitch_m,
+        wire_radius_m=spec.wire.radius_m,
+        tap_turns=(n,),
+        lead_offset_m=spec.leads.offset_m,
+        style=spec.winding.style,
+        lead_depths_m=(spec.leads.offset_m * (1 + tap_index),),
     )
 
 

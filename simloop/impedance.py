@@ -37,10 +37,11 @@ import numpy as np
 
 from simloop import reference
 from simloop.errors import SolverError, SpecError
-from simloop.geometry import LoopGeometry, check_clearances, loop_from_spec, rod_clearance_problems
+from simloop.geometry import (LoopGeometry, check_clearances, loop_from_spec, rod_clearance_problems,
+                              single_tap_circuit)
 from simloop.lumped import LoopModel, fit_loop_model
-from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, Rule, mesh_for_spec, mesh_rules
-from simloop.solve import Environment, PortSolution, SolveCache, solve_ports
+from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, Rule, build_mesh, mesh_for_spec, mesh_rules
+from simloop.solve import Environment, PortSolution, SolveCache, SolveRequest, solve_many, solve_ports
 
 #: A point is reported reliable when its relative impedance error estimate is below this.
 RELIABLE_BELOW = 0.05
@@ -131,6 +132,10 @@ class SweepResult:
         Relative error estimate of L0 per tap. [-]
     quasi_static_inductance_h : ndarray, shape (k,)
         Partial-inductance sum of each tap's current path (no MoM). [H]
+    junction_correction : ndarray, shape (k,)
+        κ applied to each tap (impedances scale as √(κ_i κ_j)); 1 where none was needed. [-]
+    uncorrected_inductance_h : ndarray, shape (k,)
+        L0 of the MoM model before the junction correction. [H]
     """
 
     name: str
@@ -144,6 +149,8 @@ class SweepResult:
     self_resonance_hz: np.ndarray
     inductance_error: np.ndarray
     quasi_static_inductance_h: np.ndarray
+    junction_correction: np.ndarray
+    uncorrected_inductance_h: np.ndarray
     geometry: LoopGeometry = field(repr=False)
     mesh: Mesh = field(repr=False)
     rules: tuple[Rule, ...] = ()
@@ -238,8 +245,41 @@ def _unique(freqs, existing):
     return out
 
 
+def junction_correction(spec, geom: LoopGeometry, mesh: Mesh, env: Environment, model: LoopModel,
+                        fit_hz, resistivity, workers=None, cache=None, progress=None) -> np.ndarray:
+    """Ratio κ_i of each tap's low-frequency inductance without and with the open wires.
+
+    NEC reads a tap's impedance a few per cent high when open wire (the rest of the winding, the
+    other taps' leads) continues its current path straight through a junction, although that
+    wire carries no current at low frequency and cannot change L0 (measured: detaching the open
+    stub removed the excess to 0.01 %; finer meshes and the extended kernel did not). Each tap's
+    own circuit (:func:`simloop.geometry.single_tap_circuit`, meshed with the same segment and port
+    lengths) is solved at three of the fit frequencies and its L0 fitted; κ_i = L0_own/L0_full.
+    The tap at the end of the winding has no open wire continuing its path (the other leads
+    leave it at right angles) and keeps κ = 1.
+    """
+    k = len(geom.tap_turns)
+    kappa = np.ones(k)
+    port_len = float(mesh.segment_lengths_m[mesh.port_tags[0] - 1])
+    picks = sorted({fit_hz[0], fit_hz[len(fit_hz) // 2], fit_hz[-1]})
+    todo = [i for i, n in enumerate(geom.tap_turns) if not (i == k - 1 and n == spec.winding.turns)]
+    meshes = {i: build_mesh(single_tap_circuit(spec, i), mesh.target_m, mesh.quality, port_length_m=port_len)
+              for i in todo}
+    requests = [SolveRequest(meshes[i], env, f) for i in todo for f in picks]
+    cb = (lambda d, t: progress("junction", d, t)) if progress else None
+    out = solve_many(requests, workers=workers, cache=cache, progress=cb)
+    for n_done, i in enumerate(todo):
+        sols = out[n_done * len(picks):(n_done + 1) * len(picks)]
+        failed = [s for s in sols if isinstance(s, SolverError)]
+        if failed:
+            raise SolverError(f"tap {geom.tap_turns[i]}: its own circuit could not be solved: {failed[0]}")
+        own = fit_loop_model(picks, np.array([s.y for s in sols]), geom.wire_radius_m, resistivity)
+        kappa[i] = own.inductance_h[0, 0] / model.inductance_h[i, i]
+    return kappa
+
+
 def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = None,
-              progress=None, direct: bool = False) -> SweepResult:
+              progress=None, direct: bool = False, correct_junctions: bool = True) -> SweepResult:
     """Sweep the impedance of every tap of a loop spec.
 
     Parameters
@@ -254,6 +294,8 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     direct : bool
         Solve every sweep point directly, below the floor too (for studies of the breakdown);
         such points carry the breakdown error estimate and are flagged unreliable.
+    correct_junctions : bool
+        Remove the junction bias of mid-winding taps (:func:`junction_correction`).
     """
     geom, mesh, rules = prepare(spec)
     env = environment_from_spec(spec)
@@ -334,8 +376,15 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     floor = 0.0 if direct else f7
     solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
 
-    # 4. Assemble with error estimates.
+    # 4. Junction correction: each tap's own circuit, without the open wires hanging from it.
     k = len(geom.tap_turns)
+    raw_l0 = np.diag(model.inductance_h).copy()
+    kappa = junction_correction(spec, geom, mesh, env, model, fit_hz, resistivity, workers, cache,
+                                progress) if correct_junctions else np.ones(k)
+    scale = np.sqrt(kappa)
+    model = model.scaled(scale)
+    for f in solved:
+        solved[f] = solved[f].scaled(scale)
     srf_taps = np.array([
         (lambda v: np.nan if v is None else v)(model.self_resonance_hz(i, 40 * f_hi)) for i in range(k)
     ])
@@ -383,6 +432,8 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         self_resonance_hz=srf_taps,
         inductance_error=eps_l,
         quasi_static_inductance_h=l_qs,
+        junction_correction=kappa,
+        uncorrected_inductance_h=raw_l0,
         geometry=geom,
         mesh=mesh,
         rules=tuple(rules),

@@ -21,6 +21,7 @@ exact as ω → 0, where Z → R + jωL0.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -67,6 +68,18 @@ class LoopModel:
     @property
     def ports(self) -> int:
         return self.inductance_h.shape[0]
+
+    def scaled(self, scale) -> "LoopModel":
+        """The model with every port impedance scaled: Z_ij → s_i s_j Z_ij.
+
+        L0 and the series loss scale as D·X·D, the shunt capacitance as D⁻¹·C·D⁻¹ (D = diag(s)),
+        so the self-resonances and the Q stay as fitted.
+        """
+        d = np.asarray(scale, dtype=float)
+        outer = np.outer(d, d)
+        return dataclasses.replace(self, inductance_h=self.inductance_h * outer,
+                                   capacitance_f=self.capacitance_f / outer,
+                                   loss_coefficients=self.loss_coefficients * outer)
 
     def series_resistance(self, frequency_hz) -> np.ndarray:
         """R_s(f), shape (n, k, k). [Ω]"""

@@ -126,19 +126,24 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     return min(delta, 0.05 * C0 / stop_hz)
 
 
-def build_mesh(geom: LoopGeometry, target_m: float, quality: str = "standard") -> Mesh:
+def build_mesh(geom: LoopGeometry, target_m: float, quality: str = "standard",
+               port_length_m: float | None = None) -> Mesh:
     """Cut every piece into segments as close to ``target_m`` as whole numbers allow.
 
     Each tap's drop is cut into three wires: the port, a single segment in the middle of the drop,
     and the parts before and after it, all in segments of one length (the shallowest drop cut
     into an odd number ≥ 3 of segments), so the Y matrix is not made asymmetric by unequal port
-    segments or unequal neighbours.
+    segments or unequal neighbours. ``port_length_m`` imposes the port segment length instead
+    (to mesh one tap's circuit exactly as it is meshed inside the full loop).
     """
     lengths = geom.lengths_m
     kinds = np.array(geom.kinds)
-    shallowest = float(lengths[kinds == DROP].min())
-    n_port = max(3, int(round(shallowest / target_m)) | 1)  # odd, so one segment sits in the middle
-    port_len = shallowest / n_port
+    if port_length_m is None:
+        shallowest = float(lengths[kinds == DROP].min())
+        n_port = max(3, int(round(shallowest / target_m)) | 1)  # odd: one segment in the middle
+        port_len = shallowest / n_port
+    else:  # the caller's port length (drops must be whole multiples of it)
+        port_len = float(port_length_m)
     starts, ends, segs, piece, winding = [], [], [], [], []
     port_tags = [0] * len(geom.tap_turns)
 

@@ -80,6 +80,8 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
             "inductance_h": float(result.inductance_h[i]),
             "inductance_error": float(result.inductance_error[i]),
             "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
+            "junction_correction": float(result.junction_correction[i]),
+            "uncorrected_inductance_h": float(result.uncorrected_inductance_h[i]),
             "self_resonance_hz": _num(result.self_resonance_hz[i]),
             "self_capacitance_f": _num(result.self_capacitance_f[i]),
             "reliable": [bool(v) for v in result.reliable[:, i]],

@@ -14,6 +14,7 @@ each solve runs in a forked worker process with a timeout: a crash or hang becom
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import multiprocessing as mp
@@ -98,6 +99,11 @@ class PortSolution:
     def y(self) -> np.ndarray:
         """Admittance matrix of the reciprocal network :attr:`z`. [S]"""
         return np.linalg.inv(self.z)
+
+    def scaled(self, scale) -> "PortSolution":
+        """The solution with port impedances scaled, Z_ij → s_i s_j Z_ij (Y_raw → Y_raw / s_i s_j)."""
+        d = np.asarray(scale, dtype=float)
+        return dataclasses.replace(self, y_raw=self.y_raw / np.outer(d, d))
 
     @property
     def asymmetry(self) -> float:

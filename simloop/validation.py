@@ -941,10 +941,21 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
         rows = [c for c in checks if c.tap == n]
         l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
         if l_rows:
-            worst = max(l_rows, key=lambda c: abs(c.rel_diff_mom))
-            d = worst.rel_diff_mom
+            # The sweep's L0 row is already junction-corrected; the direct MoM rows are raw and
+            # are judged after the same correction κ (impedances scale by κ), with both shown.
+            kappa = float(sweep.junction_correction[sweep.tap_turns.index(n)])
+
+            def judged(c):
+                return c.rel_diff_mom if c.frequency_hz is None else (1 + c.rel_diff_mom) * kappa - 1
+
+            worst = max(l_rows, key=lambda c: abs(judged(c)))
+            d = judged(worst)
             where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
-            text = f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum"
+            if kappa != 1.0 and worst.frequency_hz is not None:
+                text = (f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum after the sweep's "
+                        f"junction correction ({worst.rel_diff_mom:+.1%} raw)")
+            else:
+                text = f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum"
             hint = ("; a lower tap: the open turns and leads beyond it join its current path at "
                     "junctions, where NEC is biased (see the README)") if n != sweep.tap_turns[-1] else ""
             if abs(d) > L_CAUTION:

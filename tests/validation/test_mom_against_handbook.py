@@ -91,11 +91,23 @@ def _ratio(result, tap_index):
     return result.inductance_h[tap_index] / qs
 
 
-def test_full_winding_matches_partial_inductance_sum(multi_turn):
+def test_every_tap_matches_partial_inductance_sum(multi_turn):
     # Quasi-static partial-inductance sum (Grover 1946 filaments) over the real winding path with
-    # its leads: the MoM L0 of the tap at the end of the winding agrees within 4 % (the issue's
-    # tolerance; measured 0.5-0.8 %).
-    assert abs(_ratio(multi_turn, -1) - 1) < 0.04
+    # its leads: the reported L0 of every tap agrees within 4 % (the issue's tolerance). Mid-winding
+    # taps need the junction correction for it (below); the end tap needs none.
+    for i in range(len(multi_turn.tap_turns)):
+        assert abs(_ratio(multi_turn, i) - 1) < 0.04, multi_turn.tap_turns[i]
+    assert multi_turn.junction_correction[-1] == 1.0
+
+
+def test_junction_correction_is_what_brings_mid_taps_in(multi_turn):
+    # Without the correction the mid tap of these coils read 3.9-4.7 % high; the correction is a
+    # MoM solve of the tap's own circuit, not the quasi-static value, so it can disagree with it.
+    geom = multi_turn.geometry
+    qs = reference.inductance_partial_sum(*geom.current_path(0), geom.wire_radius_m)
+    raw = multi_turn.uncorrected_inductance_h[0] / qs - 1
+    assert raw > 0.02
+    assert abs(_ratio(multi_turn, 0) - 1) < raw / 2
 
 
 def test_mid_tap_bias_is_the_open_stub_at_the_tap_junction():
@@ -131,13 +143,10 @@ def test_mid_tap_bias_is_the_open_stub_at_the_tap_junction():
     assert attached - 1 > 0.01, "with the open stub attached the MoM reads high (junction bias)"
 
 
-def test_mid_tap_deviation_is_bounded_and_reported(multi_turn):
-    # The issue asks for 4 % on every tap; mid-winding taps of these coils read 3.9-4.7 % high
-    # (the junction bias above), so they are held to 6 %, and the sweep never claims an
-    # inductance error smaller than the distance to the quasi-static model.
-    dev = abs(_ratio(multi_turn, 0) - 1)
-    assert dev < 0.06
-    assert multi_turn.inductance_error[0] >= dev
+def test_inductance_error_covers_the_distance_to_the_quasi_static_model(multi_turn):
+    # The sweep never claims an inductance error smaller than the distance to the quasi-static sum.
+    for i in range(len(multi_turn.tap_turns)):
+        assert multi_turn.inductance_error[i] >= abs(_ratio(multi_turn, i) - 1)
 
 
 def test_more_turns_tune_lower(multi_turn):
