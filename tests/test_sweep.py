@@ -122,3 +122,16 @@ def test_loss_model_follows_the_skin_effect(result):
     r_model = result.model.series_resistance(f)[:, 1, 1]
     # series resistance of the full tap ~ its path length x R' (leads included), within 3 %
     assert np.allclose(r_model, path_len * per_m, rtol=0.03, atol=0)
+
+
+def test_junction_scaling_keeps_resonance_and_q(result):
+    # Z_ij -> s_i s_j Z_ij scales every tap's impedance; the poles (self-resonances) and the ratio
+    # X/R of each tap must not move (D·L·D, D·R·D, D^-1·C·D^-1 share the generalised eigenvalues).
+    s = np.array([0.97, 1.0])
+    scaled = result.model.scaled(s)
+    for i in range(2):
+        assert scaled.self_resonance_hz(i, 1e9) == pytest.approx(result.model.self_resonance_hz(i, 1e9), rel=1e-9, abs=0)
+    f = np.array([600e3, 1.2e6])
+    z0, z1 = result.model.z(f), scaled.z(f)
+    assert np.allclose(z1[:, 0, 0], s[0] ** 2 * z0[:, 0, 0], rtol=1e-9, atol=0)
+    assert np.allclose(z1[:, 0, 1], s[0] * s[1] * z0[:, 0, 1], rtol=1e-9, atol=0)
