@@ -119,8 +119,10 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     """Segment length a mesh of the given quality aims at. [m]"""
     pitch_factor, per_turn = QUALITY[quality]
     kinds = np.array(geom.kinds)
-    # No lead piece may be shorter than a segment, and the shallowest drop holds three.
-    delta = min(perimeter_m / per_turn, float(geom.lengths_m[kinds == DROP].min()) / 3.0)
+    # No lead piece may be shorter than a segment; the shallowest drop holds three segments (two
+    # at draft quality, where its three port-length segments are then shorter than the rest).
+    per_drop = 2.0 if quality == "draft" else 3.0
+    delta = min(perimeter_m / per_turn, float(geom.lengths_m[kinds == DROP].min()) / per_drop)
     if turns > 1:
         delta = min(delta, pitch_factor * geom.pitch_m)
     return min(delta, 0.05 * C0 / stop_hz)
