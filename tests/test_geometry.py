@@ -94,7 +94,7 @@ def test_stacked_wire_length_matches_hand_count():
     geom = build_loop(**kw)
     w, h, p, n = kw["width_m"], kw["height_m"], kw["pitch_m"], kw["turns"]
     per_turn = w / 2 + h + w + h + np.hypot(w / 2, p)
-    assert geom.winding_length_m == pytest.approx(n * per_turn, rel=1e-12)
+    assert geom.winding_length_m == pytest.approx(n * per_turn, rel=1e-12, abs=0)
 
 
 def test_spiral_turns_are_inset_by_the_pitch():

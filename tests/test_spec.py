@@ -119,25 +119,25 @@ def test_design_example_parses_to_si():
     spec = loads(DESIGN_EXAMPLE)
     assert spec.name == "shed-loop"
     assert spec.path is None
-    assert (spec.frame.width_m, spec.frame.height_m) == pytest.approx((0.80, 0.60), rel=1e-15)
+    assert (spec.frame.width_m, spec.frame.height_m) == pytest.approx((0.80, 0.60), rel=1e-15, abs=0)
     assert spec.winding.style == "stacked"
     assert spec.winding.turns == 10 and isinstance(spec.winding.turns, int)
-    assert spec.winding.pitch_m == pytest.approx(6e-3, rel=1e-15)
+    assert spec.winding.pitch_m == pytest.approx(6e-3, rel=1e-15, abs=0)
     assert spec.wire.gauge_awg == 20
     assert spec.wire.diameter_m == pytest.approx(0.8118e-3, abs=0.5e-7)  # ASTM B258 [calc]
-    assert spec.wire.radius_m == pytest.approx(spec.wire.diameter_m / 2, rel=1e-15)
+    assert spec.wire.radius_m == pytest.approx(spec.wire.diameter_m / 2, rel=1e-15, abs=0)
     assert spec.wire.metal == "copper"
     assert spec.wire.conductivity_s_m == 5.8e7
     assert spec.taps.turns == (6, 8, 10)
-    assert spec.leads.offset_m == pytest.approx(0.03, rel=1e-15)
+    assert spec.leads.offset_m == pytest.approx(0.03, rel=1e-15, abs=0)
     assert (spec.sweep.start_hz, spec.sweep.stop_hz, spec.sweep.points) == (500e3, 1800e3, 27)
     assert spec.mesh == MeshSpec(quality="standard", segment_length_m=None)
     assert spec.ground == GroundSpec(kind="real", height_m=1.5, permittivity=15.0,
                                      conductivity_s_m=1e-3, soil="medium-dry")
     tuner = spec.tuner
     assert tuner is not None and tuner.kind == "range"
-    assert tuner.min_f == pytest.approx(12e-12, rel=1e-15)
-    assert tuner.max_f == pytest.approx(450e-12, rel=1e-15)
+    assert tuner.min_f == pytest.approx(12e-12, rel=1e-15, abs=0)
+    assert tuner.max_f == pytest.approx(450e-12, rel=1e-15, abs=0)
     assert tuner.q == 400.0
     assert (tuner.plate_width_m, tuner.gaps, tuner.stray_f) == (None, None, None)
     rx = spec.receiver
@@ -275,7 +275,7 @@ def test_receiver_axis_is_normalised_and_inductance_optional():
         "receiver.coil_inductance": '"237 uH"'}))
     rx = spec.receiver
     assert rx is not None
-    assert rx.axis == pytest.approx((0.6, 0.8, 0.0), rel=1e-15)
+    assert rx.axis == pytest.approx((0.6, 0.8, 0.0), rel=1e-15, abs=0)
     assert rx.position_m == pytest.approx((0.0, 0.25, -0.2))
     assert rx.coil_inductance_h == pytest.approx(237e-6)
 
@@ -284,8 +284,8 @@ def test_receiver_axis_is_normalised_and_inductance_optional():
 
 def test_copper_conductivity_per_iec_60028():
     # IEC 60028 annealed copper standard: ρ20 = 1/58 Ω·mm²/m = (1/58)·1e-6 Ω·m [src secondary]
-    assert METAL_CONDUCTIVITY_S_M["copper"] == pytest.approx(1 / (1e-6 / 58), rel=1e-12)
-    assert 1 / METAL_CONDUCTIVITY_S_M["copper"] == pytest.approx(1.7241e-8, rel=1e-4)
+    assert METAL_CONDUCTIVITY_S_M["copper"] == pytest.approx(1 / (1e-6 / 58), rel=1e-12, abs=0)
+    assert 1 / METAL_CONDUCTIVITY_S_M["copper"] == pytest.approx(1.7241e-8, rel=1e-4, abs=0)
 
 
 def test_aluminium_and_lossless():

@@ -104,9 +104,9 @@ def test_lossless_lc_resonates_at_thomson_frequency():
     z = lambda f: 2j * np.pi * np.asarray(f) * L  # noqa: E731
     for c in (12e-12, 100e-12, 450e-12):
         expected = 1 / (2 * np.pi * math.sqrt(L * c))
-        assert resonance_frequency(z, c) == pytest.approx(expected, rel=1e-9)
+        assert resonance_frequency(z, c) == pytest.approx(expected, rel=1e-9, abs=0)
     f = np.array([531e3, 1e6, 1602e3])
-    assert tuning_capacitance(z(f), f) == pytest.approx(1 / ((2 * np.pi * f) ** 2 * L), rel=1e-12)
+    assert tuning_capacitance(z(f), f) == pytest.approx(1 / ((2 * np.pi * f) ** 2 * L), rel=1e-12, abs=0)
 
 
 def _skrf_loop(f, L, R, Cs, extra=()):
@@ -124,7 +124,7 @@ def test_resonance_q_and_bandwidth_agree_with_scikit_rf_network():
     ct, q_cap = 150e-12, 400.0
     f0 = resonance_frequency(z_loop, ct)
     # Lossless limit: the resonance of L with Cs + Ct, to within (R/ωL)² (here 3e-5).
-    assert f0 == pytest.approx(1 / (2 * np.pi * math.sqrt(L * (Cs + ct))), rel=1e-4)
+    assert f0 == pytest.approx(1 / (2 * np.pi * math.sqrt(L * (Cs + ct))), rel=1e-4, abs=0)
     q_loop = tuned_q(z_loop, [f0], [ct])[0]
     q_l = tuned_q(z_loop, [f0], [ct], capacitor_q=q_cap)[0]
     # The tuned network in scikit-rf: Ct with its loss as a parallel resistor Q/(ω0 Ct).
@@ -134,11 +134,11 @@ def test_resonance_q_and_bandwidth_agree_with_scikit_rf_network():
                                                lambda m: m.shunt_resistor(rp)))
     mag = np.abs(tuned.z[:, 0, 0])
     peak = int(np.argmax(mag))
-    assert fgrid[peak] == pytest.approx(f0, rel=2e-5)
+    assert fgrid[peak] == pytest.approx(f0, rel=2e-5, abs=0)
     half = fgrid[mag >= mag[peak] / math.sqrt(2)]
-    assert half[-1] - half[0] == pytest.approx(f0 / q_l, rel=0.01)  # single-tuned circuit, Q ≈ 100
+    assert half[-1] - half[0] == pytest.approx(f0 / q_l, rel=0.01, abs=0)  # single-tuned circuit, Q ≈ 100
     # Without the capacitor's loss, Q is ωL/R (the series R of the coil).
-    assert q_loop == pytest.approx(2 * np.pi * f0 * L / R, rel=1e-3)
+    assert q_loop == pytest.approx(2 * np.pi * f0 * L / R, rel=1e-3, abs=0)
     # The loss of the top audio frequency, 10·log10(1 + (2 f_a/B)²), against the network.
     fa = 4.5e3
     bw = f0 / q_l
@@ -158,8 +158,8 @@ def test_series_x_over_r_understates_q_near_self_resonance():
     ct = float(tuning_capacitance(z_loop(f)[0], f))
     q = tuned_q(z_loop, [f], [ct])[0]
     z = z_loop(f)[0]
-    assert q == pytest.approx(2 * np.pi * f * L / R, rel=1e-3)
-    assert z.imag / z.real == pytest.approx(q * (1 - 0.36), rel=0.01)
+    assert q == pytest.approx(2 * np.pi * f * L / R, rel=1e-3, abs=0)
+    assert z.imag / z.real == pytest.approx(q * (1 - 0.36), rel=0.01, abs=0)
 
 
 # --- Coverage, gaps, chart on a MoM sweep ------------------------------------------------------
@@ -176,11 +176,11 @@ def test_coverage_is_the_fitted_models_resonance_at_cmax_and_cmin(tiny):
 
         f_c_max = brentq(mismatch, 100e3, 5e6, args=(hi,), xtol=1e-3)
         f_c_min = brentq(mismatch, 100e3, 5e6, args=(lo,), xtol=1e-3)
-        assert r.f_low_hz[i] == pytest.approx(f_c_max, rel=1e-7)
-        assert r.f_high_hz[i] == pytest.approx(f_c_min, rel=1e-7)
+        assert r.f_low_hz[i] == pytest.approx(f_c_max, rel=1e-7, abs=0)
+        assert r.f_high_hz[i] == pytest.approx(f_c_min, rel=1e-7, abs=0)
         # The bare lumped estimate agrees to the self-capacitance's share (a few per mille here).
         lumped = 1 / (2 * np.pi * np.sqrt(sweep.inductance_h[i] * (hi + sweep.self_capacitance_f[i])))
-        assert r.f_low_hz[i] == pytest.approx(lumped, rel=0.01)
+        assert r.f_low_hz[i] == pytest.approx(lumped, rel=0.01, abs=0)
 
 
 def test_too_small_capacitor_reports_the_gap_it_leaves(tiny):
@@ -192,7 +192,7 @@ def test_too_small_capacitor_reports_the_gap_it_leaves(tiny):
     assert 0.7e6 < f_edge < 0.85e6
     assert r.gaps_hz.shape == (1, 2)
     assert r.gaps_hz[0, 0] == 531e3
-    assert r.gaps_hz[0, 1] == pytest.approx(f_edge, rel=1e-9)
+    assert r.gaps_hz[0, 1] == pytest.approx(f_edge, rel=1e-9, abs=0)
     missed = r.frequencies_hz[~r.covered]
     assert np.array_equal(missed, r.frequencies_hz[r.frequencies_hz < f_edge])
     for j in np.flatnonzero(~r.covered):
@@ -226,7 +226,7 @@ def test_plate_tuner_positions_reproduce_the_capacitance(tmp_path):
     # C(x) = stray + 2 ε0 ε_r w x / d, written out here with CODATA 2018 ε0.
     eps0 = 8.8541878128e-12
     c_back = 20e-12 + 2 * eps0 * 2.3 * 0.10 * r.position_m[ok] / 0.5e-3
-    assert c_back == pytest.approx(r.capacitance_f[ok], rel=1e-8)
+    assert c_back == pytest.approx(r.capacitance_f[ok], rel=1e-8, abs=0)
     for i in range(len(r.tap_turns)):
         x = r.position_m[r.channel_tap_index == i]
         assert np.all(np.diff(x) < 0)
@@ -245,7 +245,7 @@ def test_q_with_proximity_effect_is_lower(tiny):
     for i in range(len(r.tap_turns)):
         sel = r.channel_tap_index == i
         direct = tuned_q(tap_z(sweep, i), r.frequencies_hz[sel], r.capacitance_f[sel], capacitor_q=500.0)
-        assert r.q_loaded[sel] == pytest.approx(direct, rel=1e-9)
+        assert r.q_loaded[sel] == pytest.approx(direct, rel=1e-9, abs=0)
     assert np.array_equal(r.audio_cut, ok & (r.bandwidth_hz < 2 * 4.5e3))
 
 
@@ -258,9 +258,9 @@ def test_tuner_voltage_from_effective_height_and_q(tiny):
     n = r.channel_tap[ok]
     area = 0.4 * 0.3  # every stacked turn encloses the frame's centreline rectangle
     h_e = 2 * np.pi * n * area * f / SPEED_OF_LIGHT  # Kraus ch. 6: h_e = 2πNA/λ
-    assert r.effective_height_m[ok] == pytest.approx(h_e, rel=1e-9)
-    assert r.voltage_v[ok] == pytest.approx(r.q_loaded[ok] * h_e * field, rel=1e-9)
-    assert r.current_a[ok] == pytest.approx(r.voltage_v[ok] * 2 * np.pi * f * r.capacitance_f[ok], rel=1e-9)
+    assert r.effective_height_m[ok] == pytest.approx(h_e, rel=1e-9, abs=0)
+    assert r.voltage_v[ok] == pytest.approx(r.q_loaded[ok] * h_e * field, rel=1e-9, abs=0)
+    assert r.current_a[ok] == pytest.approx(r.voltage_v[ok] * 2 * np.pi * f * r.capacitance_f[ok], rel=1e-9, abs=0)
     assert any("transmit" in c for c in r.cautions)
 
 
@@ -308,8 +308,8 @@ def test_suggested_taps_close_the_gap_when_swept():
     r2 = run_tune(spec2, run_sweep(spec2, cache=None))
     assert r2.gaps_hz.size == 0
     assert r2.covered.all()
-    assert np.asarray(r2.f_low_hz) == pytest.approx(s.f_low_hz, rel=0.03)
-    assert np.asarray(r2.f_high_hz) == pytest.approx(s.f_high_hz, rel=0.03)
+    assert np.asarray(r2.f_low_hz) == pytest.approx(s.f_low_hz, rel=0.03, abs=0)
+    assert np.asarray(r2.f_high_hz) == pytest.approx(s.f_high_hz, rel=0.03, abs=0)
 
 
 def test_suggestion_reaches_band_edges_with_its_margin(tiny):
@@ -346,7 +346,7 @@ def test_held_back_error_uses_only_unfitted_mom_points():
     i = int(np.argmax(sweep.frequencies_hz == h.frequencies_hz[0]))
     z_mom = sweep.z_ohm[i][idx, idx]
     z_mod = sweep.model_z([h.frequencies_hz[0]], proximity=False)[0][idx, idx]
-    assert h.relative_error[0] == pytest.approx(np.abs(z_mod - z_mom) / np.abs(z_mom), rel=1e-12)
+    assert h.relative_error[0] == pytest.approx(np.abs(z_mod - z_mom) / np.abs(z_mom), rel=1e-12, abs=0)
     assert np.all(h.max_relative_error < 0.05)
     assert h.mom_error_estimate.shape == h.relative_error.shape
 

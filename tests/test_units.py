@@ -52,7 +52,7 @@ EVERY_UNIT = [
 
 @pytest.mark.parametrize(("text", "kind", "expected"), EVERY_UNIT)
 def test_every_unit_parses_to_si(text, kind, expected):
-    assert parse_quantity(text, kind) == pytest.approx(expected, rel=1e-12)
+    assert parse_quantity(text, kind) == pytest.approx(expected, rel=1e-12, abs=0)
 
 
 def test_every_kind_has_a_tested_unit():
@@ -60,8 +60,8 @@ def test_every_kind_has_a_tested_unit():
 
 
 def test_angles_come_back_in_degrees():
-    assert parse_quantity("1 rad", "angle") == pytest.approx(180 / math.pi, rel=1e-15)
-    assert parse_quantity(f"{math.pi / 2} rad", "angle") == pytest.approx(90.0, rel=1e-15)
+    assert parse_quantity("1 rad", "angle") == pytest.approx(180 / math.pi, rel=1e-15, abs=0)
+    assert parse_quantity(f"{math.pi / 2} rad", "angle") == pytest.approx(90.0, rel=1e-15, abs=0)
 
 
 @pytest.mark.parametrize(
@@ -69,7 +69,7 @@ def test_angles_come_back_in_degrees():
     ["6mm", "  6 mm  ", "6\u00a0mm", "+6 mm", "6. mm", ".6e1 mm", "0.6E1 mm", "6e0 mm"],
 )
 def test_number_forms_and_spacing(text):
-    assert parse_quantity(text, "length") == pytest.approx(6e-3, rel=1e-15)
+    assert parse_quantity(text, "length") == pytest.approx(6e-3, rel=1e-15, abs=0)
 
 
 def test_unicode_minus_is_a_minus():
@@ -243,7 +243,7 @@ def test_format_quantity(value, kind, text):
 @pytest.mark.parametrize("kind", KINDS)
 @pytest.mark.parametrize("value", [1.234567e-13, 3.3e-9, 7.1e-5, 0.0123, 0.8, 12.5, 4.4e5, 2.2e7])
 def test_format_round_trips_through_parse(kind, value):
-    assert parse_quantity(format_quantity(value, kind), kind) == pytest.approx(value, rel=1e-3)
+    assert parse_quantity(format_quantity(value, kind), kind) == pytest.approx(value, rel=1e-3, abs=0)
 
 
 def test_as_written():
@@ -267,13 +267,13 @@ def test_awg_diameter_matches_b258_formula_check_values(gauge, diameter_mm):
 
 def test_awg_4_0_matches_b258_table():
     # 4/0 AWG = 0.4600 in = 11.684 mm, from the B258 table [mem]; n = 1 − 4 = −3.
-    assert awg_diameter_m(-3) == pytest.approx(0.4600 * 25.4e-3, rel=1e-12)
-    assert awg_diameter_m("4/0") == pytest.approx(11.684e-3, rel=1e-12)
+    assert awg_diameter_m(-3) == pytest.approx(0.4600 * 25.4e-3, rel=1e-12, abs=0)
+    assert awg_diameter_m("4/0") == pytest.approx(11.684e-3, rel=1e-12, abs=0)
 
 
 def test_awg_36_is_the_defining_5_mil_wire():
     # the formula is anchored at 36 AWG = 0.005 in = 0.127 mm
-    assert awg_diameter_m(36) == pytest.approx(0.127e-3, rel=1e-15)
+    assert awg_diameter_m(36) == pytest.approx(0.127e-3, rel=1e-15, abs=0)
 
 
 @pytest.mark.parametrize(("text", "n"), [
