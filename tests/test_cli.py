@@ -84,6 +84,7 @@ def test_sweep_writes_every_output(tmp_path, capsys):
     assert {"sweep.json", "tap-2.s1p", "tap-4.s1p", "taps.s2p", "impedance.csv", "impedance.png"} <= names
     data = json.loads((out / "sweep.json").read_text())
     assert data["reference_impedance_ohm"] == 75
+    # Touchstone 1.1 option line (IBIS Open Forum): "# <unit> <parameter> <format> R <n>"
     assert "# Hz S RI R 75" in (out / "taps.s2p").read_text()
 
 
