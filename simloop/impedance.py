@@ -171,8 +171,7 @@ class SweepResult:
     @property
     def resistivity_ohm_m(self) -> float | None:
         """Wire resistivity, None for a lossless wire. [Ω·m]"""
-        c = self.environment.wire_conductivity_s_m
-        return None if c is None else 1.0 / c
+        return self.environment.resistivity_ohm_m
 
     def model_z(self, frequency_hz, proximity: bool = True) -> np.ndarray:
         """Impedance matrix from the fitted model at any frequency, shape (n, k, k). [Ω]
@@ -299,7 +298,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     """
     geom, mesh, rules = prepare(spec)
     env = environment_from_spec(spec)
-    resistivity = None if spec.wire.conductivity_s_m is None else 1.0 / spec.wire.conductivity_s_m
+    resistivity = env.resistivity_ohm_m
     solved: dict[float, PortSolution] = {}
     records: list[SolveRecord] = []
 
@@ -329,13 +328,13 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     ok = [f for f in probe if f in solved]
     if len(ok) < 2:
         raise SolverError(f"the MoM probe solves failed: {'; '.join(map(str, failures.values()))}")
-    x_probe = np.array([np.linalg.inv(solved[f].y).diagonal().imag for f in ok])
+    x_probe = np.array([solved[f].z.diagonal().imag for f in ok])
     if np.any(x_probe <= 0):
         if np.all(x_probe[0] > 0):  # resonance between the two floors: fit on the lower side only
             probe = [f5, 1.1 * f5]
             solve(probe, "probe")
             ok = [f for f in probe if f in solved]
-            x_probe = np.array([np.linalg.inv(solved[f].y).diagonal().imag for f in ok]) if len(ok) == 2 else None
+            x_probe = np.array([solved[f].z.diagonal().imag for f in ok]) if len(ok) == 2 else None
         if x_probe is None or np.any(x_probe <= 0):
             raise SolverError(
                 f"the loop self-resonates below {f5 / 1e6:.3f} MHz, the lowest frequency this mesh "
@@ -385,9 +384,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     model = model.scaled(scale)
     for f in solved:
         solved[f] = solved[f].scaled(scale)
-    srf_taps = np.array([
-        (lambda v: np.nan if v is None else v)(model.self_resonance_hz(i, 40 * f_hi)) for i in range(k)
-    ])
+    srf_taps = np.array([model.self_resonance_hz(i, 40 * f_hi) for i in range(k)], dtype=float)  # None → NaN
     l_qs = np.array([reference.inductance_partial_sum(*geom.current_path(i), geom.wire_radius_m)
                      for i in range(k)])
     l_fit = np.diag(model.inductance_h)

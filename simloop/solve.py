@@ -53,6 +53,12 @@ class Environment:
     conductivity_s_m: float = 0.0
     wire_conductivity_s_m: float | None = 5.8e7
 
+    @property
+    def resistivity_ohm_m(self) -> float | None:
+        """Wire resistivity, None for a lossless wire. [Ω·m]"""
+        c = self.wire_conductivity_s_m
+        return None if c is None else 1.0 / c
+
     def as_payload(self) -> dict:
         return {
             "ground": self.ground,
