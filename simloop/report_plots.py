@@ -87,7 +87,7 @@ def _pieces(ax, geom, axes_idx, receiver_spec=None):
         a = np.asarray(receiver_spec.axis, dtype=float) * receiver_spec.rod_length_m / 2
         ax.plot([c[u] - a[u], c[u] + a[u]], [c[v] - a[v], c[v] + a[v]], color=ACCENT, lw=3.0,
                 solid_capstyle="butt", zorder=4)
-        ax.plot(c[u], c[v], "+", color="white", ms=4, mew=0.8, zorder=5)
+        ax.plot(c[u], c[v], "s", color=ACCENT, ms=3.5, zorder=5)
 
 
 def _bare(ax):
@@ -130,56 +130,61 @@ def _lead_detail(ax, spec, geom):
                 va="center", ha="left", fontsize=6.5, color=tap_style(i)["color"])
     ax.set_title("leads, enlarged")
     word = "below" if spec.winding.style == "stacked" else "in front of"
-    ax.text(0.0, -0.02, f"lead depths {word} the winding;\ncollector {length_text(spec.leads.offset_m, sys)} "
-            "behind the start terminal", transform=ax.transAxes, fontsize=6.5, color=MUTED, va="top")
+    ax.text(0.0, -0.02, f"lead depths {word} the winding;\nthe collector starts {length_text(spec.leads.offset_m, sys)} "
+            "from the start terminal", transform=ax.transAxes, fontsize=6.5, color=MUTED, va="top")
 
 
 def plot_loop_drawing(spec, geom) -> str:
+    """Front (x–z) and side (y–z) views of the loop and a detail of the leads, as SVG."""
+    with report_style():
+        return to_svg(loop_drawing_figure(spec, geom))
+
+
+def loop_drawing_figure(spec, geom) -> Figure:
     """Front (x–z) and side (y–z) views of the frame, turns, taps, leads and the radio, and a
-    detail of the leads. SVG."""
+    detail of the leads. Call inside :func:`simloop.plot_style.report_style`."""
     sys = spec.length_system
     w, h, pitch = spec.frame.width_m, spec.frame.height_m, spec.winding.pitch_m
     rec = spec.receiver
     lo, hi = _extent(spec, geom)
     span_x, span_y, span_z = hi - lo
     pad = 0.12 * max(span_x, span_z)
-    with report_style():
-        fig = figure(FULL_WIDTH_MM, 105)
-        grid = fig.add_gridspec(1, 3, width_ratios=[1.0, 0.42, 0.55])
-        front, side, detail = (fig.add_subplot(grid[k]) for k in range(3))
-        for ax in (front, side, detail):
-            _bare(ax)
-        _pieces(front, geom, (0, 2), rec)
-        _pieces(side, geom, (1, 2), rec)
-        front.set_title("front view")
-        side.set_title("side view")
-        _dimension(front, (-w / 2, h / 2), (w / 2, h / 2), f"width {length_text(w, sys)}", 0.06 * span_z)
-        _dimension(front, (-w / 2, -h / 2), (-w / 2, h / 2), f"height {length_text(h, sys)}",
-                   -0.07 * span_x, horizontal=False)
-        ys = geom.starts[np.array(geom.kinds) == WINDING][:, 1]
-        label = f"{spec.winding.turns} turns\npitch {length_text(pitch, sys)}"
-        if spec.winding.style == "stacked":
-            side.text(0.5 * (ys.min() + ys.max()), h / 2 + 0.04 * span_z, label, ha="center", va="bottom",
-                      fontsize=7)
-        else:
-            front.text(0, h / 2 - spec.winding.turns * pitch - 0.03 * span_z, label + " (each turn inset)",
-                       ha="center", va="top", fontsize=7)
-        _lead_detail(detail, spec, geom)
-        handles = [front.plot([], [], color=INK, lw=0.7, label="winding (centreline)")[0],
-                   front.plot([], [], "o", color=INK, ms=3.5, label="start terminal")[0]]
-        for i, n in enumerate(geom.tap_turns):
-            st = tap_style(i)
-            handles.append(front.plot([], [], color=st["color"], marker=st["marker"], lw=1.1, ms=4.5,
-                                      label=f"tap {n}: lead; tuner across it and the start terminal")[0])
-        handles.append(front.plot([], [], color=MUTED, lw=1.1, label="collector (common lead)")[0])
-        if rec is not None:
-            handles.append(front.plot([], [], color=ACCENT, lw=3.0, label="radio's ferrite rod")[0])
-        fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=7)
-        for ax, (u, v) in ((front, (0, 2)), (side, (1, 2))):
-            ax.set_xlim(lo[u] - pad, hi[u] + pad)
-            ax.set_ylim(lo[v] - pad, hi[v] + pad)
-        side.set_xlim(0.5 * (lo[1] + hi[1]) - 0.5 * span_z * 0.42, 0.5 * (lo[1] + hi[1]) + 0.5 * span_z * 0.42)
-        return to_svg(fig)
+    fig = figure(FULL_WIDTH_MM, 105)
+    grid = fig.add_gridspec(1, 3, width_ratios=[1.0, 0.42, 0.55])
+    front, side, detail = (fig.add_subplot(grid[k]) for k in range(3))
+    for ax in (front, side, detail):
+        _bare(ax)
+    _pieces(front, geom, (0, 2), rec)
+    _pieces(side, geom, (1, 2), rec)
+    front.set_title("front view")
+    side.set_title("side view")
+    _dimension(front, (-w / 2, h / 2), (w / 2, h / 2), f"width {length_text(w, sys)}", 0.06 * span_z)
+    _dimension(front, (-w / 2, -h / 2), (-w / 2, h / 2), f"height {length_text(h, sys)}",
+               -0.07 * span_x, horizontal=False)
+    ys = geom.starts[np.array(geom.kinds) == WINDING][:, 1]
+    label = f"{spec.winding.turns} turns\npitch {length_text(pitch, sys)}"
+    if spec.winding.style == "stacked":
+        side.text(0.5 * (ys.min() + ys.max()), h / 2 + 0.04 * span_z, label, ha="center", va="bottom",
+                  fontsize=7)
+    else:
+        front.text(0, h / 2 - spec.winding.turns * pitch - 0.03 * span_z, label + " (each turn inset)",
+                   ha="center", va="top", fontsize=7)
+    _lead_detail(detail, spec, geom)
+    handles = [front.plot([], [], color=INK, lw=0.7, label="winding (centreline)")[0],
+               front.plot([], [], "o", color=INK, ms=3.5, label="start terminal")[0]]
+    for i, n in enumerate(geom.tap_turns):
+        st = tap_style(i)
+        handles.append(front.plot([], [], color=st["color"], marker=st["marker"], lw=1.1, ms=4.5,
+                                  label=f"tap {n}: lead; tuner across it and the start terminal")[0])
+    handles.append(front.plot([], [], color=MUTED, lw=1.1, label="collector (common lead)")[0])
+    if rec is not None:
+        handles.append(front.plot([], [], color=ACCENT, lw=3.0, label="radio's ferrite rod")[0])
+    fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=7)
+    for ax, (u, v) in ((front, (0, 2)), (side, (1, 2))):
+        ax.set_xlim(lo[u] - pad, hi[u] + pad)
+        ax.set_ylim(lo[v] - pad, hi[v] + pad)
+    side.set_xlim(0.5 * (lo[1] + hi[1]) - 0.5 * span_z * 0.42, 0.5 * (lo[1] + hi[1]) + 0.5 * span_z * 0.42)
+    return fig
 
 
 # ------------------------------------------------------------------------------------------------
@@ -264,24 +269,30 @@ def _bandwidth(ax, r):
 
 
 def plot_coverage(r) -> str:
-    """Coverage bars, the setting per channel and the bandwidth, on one frequency axis. SVG."""
+    """Coverage bars, the setting per channel and the bandwidth, as SVG."""
     with report_style():
-        fig = figure(FULL_WIDTH_MM, 150)
-        ax_c, ax_s, ax_b = fig.subplots(3, 1, sharex=True, height_ratios=[1.0, 1.5, 1.1])
-        _coverage_bars(ax_c, r)
-        _setting(ax_s, r)
-        _bandwidth(ax_b, r)
-        handles = []
-        for i, n in enumerate(r.tap_turns):
-            st = tap_style(i)
-            handles.append(ax_s.plot([], [], color=st["color"], ls=st["linestyle"], marker=st["marker"],
-                                     ms=2.8, label=f"tap {n}")[0])
-        handles.append(ax_s.plot([], [], ms=3.2, label="model not trusted here", **untrusted_style(0))[0])
-        fig.legend(handles=handles, loc="outside upper right", ncol=len(handles))
-        f_k = r.frequencies_hz / 1e3
-        margin = 0.02 * (f_k[-1] - f_k[0])
-        ax_b.set_xlim(f_k[0] - margin, f_k[-1] + margin)
-        return to_svg(fig)
+        return to_svg(coverage_figure(r))
+
+
+def coverage_figure(r) -> Figure:
+    """Coverage bars, the setting per channel and the bandwidth, on one frequency axis. Call
+    inside :func:`simloop.plot_style.report_style`."""
+    fig = figure(FULL_WIDTH_MM, 150)
+    ax_c, ax_s, ax_b = fig.subplots(3, 1, sharex=True, height_ratios=[1.0, 1.5, 1.1])
+    _coverage_bars(ax_c, r)
+    _setting(ax_s, r)
+    _bandwidth(ax_b, r)
+    handles = []
+    for i, n in enumerate(r.tap_turns):
+        st = tap_style(i)
+        handles.append(ax_s.plot([], [], color=st["color"], ls=st["linestyle"], marker=st["marker"],
+                                 ms=2.8, label=f"tap {n}")[0])
+    handles.append(ax_s.plot([], [], ms=3.2, label="model not trusted here", **untrusted_style(0))[0])
+    fig.legend(handles=handles, loc="outside upper right", ncol=len(handles))
+    f_k = r.frequencies_hz / 1e3
+    margin = 0.02 * (f_k[-1] - f_k[0])
+    ax_b.set_xlim(f_k[0] - margin, f_k[-1] + margin)
+    return fig
 
 
 def plot_slide_scale(r) -> tuple[str, float, float]:
@@ -289,32 +300,38 @@ def plot_slide_scale(r) -> tuple[str, float, float]:
 
     Returns the SVG, the width to print it at [mm] and the scale (1.0 = full size) [-].
     """
+    with report_style():
+        fig, width_mm, scale = slide_scale_figure(r)
+        return to_svg(fig), width_mm, scale
+
+
+def slide_scale_figure(r) -> tuple[Figure, float, float]:
+    """The slide scale figure, its print width [mm] and scale [-] (see :func:`plot_slide_scale`)."""
     travel_mm = r.tuner.max_overlap_m * 1e3
     scale = min(1.0, (FULL_WIDTH_MM - 20.0) / travel_mm)
     width_mm = travel_mm * scale + 20.0
-    with report_style():
-        fig = Figure(figsize=(width_mm / 25.4, 38.0 / 25.4))  # fixed layout: 1 mm on paper = 1 mm of slide
-        ax = fig.add_axes((10.0 / width_mm, 0.30, travel_mm * scale / width_mm, 0.40))
-        ax.set_xlim(0, travel_mm)
-        ax.set_ylim(0, 1)
-        ax.set_yticks([])
-        ax.grid(False)
-        ax.spines["left"].set_visible(False)
-        ax.set_xticks(np.arange(0, travel_mm + 1e-9, 10.0))
-        ax.set_xticks(np.arange(0, travel_mm + 1e-9, 1.0), minor=True)
-        ax.tick_params(axis="x", which="minor", length=2.0, width=0.4)
-        ax.set_xlabel("plate overlap from the fully open end [mm]")
-        f_k = r.frequencies_hz / 1e3
-        ok = r.covered & np.isfinite(r.position_m)
-        last = -1e9
-        for j in np.flatnonzero(ok):
-            x = r.position_m[j] * 1e3
-            trusted = bool(r.reliable[j])
-            ax.plot([x, x], [0, 0.35], color=INK if trusted else MUTED, lw=0.5,
-                    ls="-" if trusted else (0, (1.5, 1)))
-            if x - last >= 2.2:
-                ax.text(x, 0.4, f"{f_k[j]:.0f}", rotation=90, ha="center", va="bottom", fontsize=5.5,
-                        color=INK if trusted else MUTED)
-                last = x
-        ax.set_title("slide scale: channel carriers in kHz (grey dotted: model not trusted)")
-        return to_svg(fig), width_mm, scale
+    fig = Figure(figsize=(width_mm / 25.4, 34.0 / 25.4))  # fixed layout: 1 mm on paper = 1 mm of slide
+    ax = fig.add_axes((10.0 / width_mm, 0.30, travel_mm * scale / width_mm, 0.50))
+    ax.set_xlim(0, travel_mm)
+    ax.set_ylim(0, 1)
+    ax.set_yticks([])
+    ax.grid(False)
+    ax.spines["left"].set_visible(False)
+    ax.set_xticks(np.arange(0, travel_mm + 1e-9, 10.0))
+    ax.set_xticks(np.arange(0, travel_mm + 1e-9, 1.0), minor=True)
+    ax.tick_params(axis="x", which="minor", length=2.0, width=0.4)
+    ax.set_xlabel("plate overlap from the fully open end [mm]")
+    f_k = r.frequencies_hz / 1e3
+    ok = r.covered & np.isfinite(r.position_m)
+    last = -1e9
+    for j in np.flatnonzero(ok):
+        x = r.position_m[j] * 1e3
+        trusted = bool(r.reliable[j])
+        ax.plot([x, x], [0, 0.3], color=INK if trusted else MUTED, lw=0.5,
+                ls="-" if trusted else (0, (1.5, 1)))
+        if abs(x - last) * scale >= 2.2:  # labels at least 2.2 mm apart on paper
+            ax.text(x, 0.34, f"{f_k[j]:.0f}", rotation=90, ha="center", va="bottom", fontsize=5.5,
+                    color=INK if trusted else MUTED)
+            last = x
+    ax.set_title("slide scale: channel carriers in kHz (grey dotted: model not trusted)")
+    return fig, width_mm, scale
