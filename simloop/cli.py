@@ -176,8 +176,8 @@ def cmd_study(args, spec=None, source_text=None) -> int:
 
     spec = spec or load(args.spec)
     out = _out_dir(args, spec)
-    quiet = args.quiet or args.format == "json"
-    progress = _Progress(quiet)
+    # Progress bars on a terminal only: quiet in logs and CI, and when stdout is for a script.
+    progress = _Progress(args.quiet or args.format == "json" or not sys.stderr.isatty())
     try:
         result = run_study(spec, workers=args.workers, cache=_cache(args), progress=progress,
                            band=args.band, field_v_per_m=args.field,

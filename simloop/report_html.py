@@ -576,8 +576,12 @@ def format_summary(result, out: Path | None = None) -> str:
         gaps = ", ".join(f"{a / 1e3:.0f}–{b / 1e3:.0f} kHz" for a, b in d["gaps_hz"])
         lines.append(f"  gaps: {gaps}" if gaps else "  no gaps in the band")
     if "verdict" in d:
-        lines.append(f"  validation: {d['verdict']['status'].upper()}"
-                     + (f" ({len(d['verdict']['reasons'])} reasons in the report)" if d["verdict"]["reasons"] else ""))
+        status, reasons = d["verdict"]["status"], d["verdict"]["reasons"]
+        if status == "ok" or not reasons:
+            lines.append(f"  validation: {status.upper()}" + (f": {reasons[0]}" if reasons else ""))
+        else:
+            lines.append(f"  validation: {status.upper()}, {len(reasons)} reason{'s' if len(reasons) > 1 else ''} "
+                         f"(first: {reasons[0]})")
     if out is not None:
         lines.append(f"report: {out / 'report.html'}")
     return "\n".join(lines)

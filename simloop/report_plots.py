@@ -126,7 +126,7 @@ def _lead_detail(ax, spec, geom):
         run = np.flatnonzero((kinds == RUN) & (geom.tap == i))[0]
         p, q = geom.starts[run], geom.ends[run]
         depth = abs(p[2] - top[2]) if spec.winding.style == "stacked" else abs(p[1] - top[1])
-        ax.text(max(p[1], q[1]) + 0.08 * size, p[2], f"tap {n}: {length_text(depth, sys)}",
+        ax.text(hi[1] + 0.08 * size, p[2], f"tap {n}: {length_text(depth, sys)}",
                 va="center", ha="left", fontsize=6.5, color=tap_style(i)["color"])
     ax.set_title("leads, enlarged")
     word = "below" if spec.winding.style == "stacked" else "in front of"
@@ -215,7 +215,7 @@ def _coverage_bars(ax, r):
                     fontsize=6.5)
     for g0, g1 in r.gaps_hz / 1e3:
         ax.axvspan(g0, max(g1, g0 + 1.0), facecolor="none", hatch="////", edgecolor=WARN, lw=0)
-        ax.text(0.5 * (g0 + g1), k - 0.45, f"gap {g0:.0f}–{g1:.0f} kHz", ha="center", va="bottom",
+        ax.text(g0, k - 0.45, f" gap {g0:.0f}–{g1:.0f} kHz", ha="left", va="bottom",
                 fontsize=6.5, color=WARN, bbox=dict(fc="white", ec="none", pad=0.8))
     ax.set_yticks(range(k), [f"tap {n}" for n in reversed(r.tap_turns)])
     ax.set_ylim(-0.6, k - 0.05)
