@@ -177,17 +177,21 @@ def cmd_study(args, spec=None, source_text=None) -> int:
     spec = spec or load(args.spec)
     out = _out_dir(args, spec)
     # Progress bars on a terminal only: quiet in logs and CI, and when stdout is for a script.
-    progress = _Progress(args.quiet or args.format == "json" or not sys.stderr.isatty())
+    show = not (args.quiet or args.format == "json" or not sys.stderr.isatty())
+    progress = _Progress(not show)
     try:
         result = run_study(spec, workers=args.workers, cache=_cache(args), progress=progress,
                            band=args.band, field_v_per_m=args.field,
                            convergence=not args.no_convergence, source_text=source_text)
-        paths = write_sweep(result.sweep, out, z0=args.z0)
-        paths += write_tune(result.tune, out)
-        paths += write_validate(result.validation, out)
-        paths.append(write_report(result, out))
     finally:
         progress.close()
+    from tqdm import tqdm
+
+    writers = [lambda: write_sweep(result.sweep, out, z0=args.z0), lambda: write_tune(result.tune, out),
+               lambda: write_validate(result.validation, out), lambda: [write_report(result, out)]]
+    paths = []
+    for write in tqdm(writers, desc="writing outputs", unit="file set", leave=False, disable=not show):
+        paths += write()
     summary = summary_dict(result, out)
     paths.append(write_json(out / "study.json", summary))
     if args.format == "json":

@@ -30,9 +30,10 @@ MUTED = "#8a8a8a"
 ACCENT = "#2f6f4f"
 #: Gaps and warnings: a red that prints as mid grey, always paired with hatching.
 WARN = "#b2322b"
-#: Tap colours, dark to light (lightness 25 %, 45 %, 62 %, 35 %, 55 %), so that taps stay apart
-#: when printed in grey; line styles and markers repeat the distinction.
-TAP_COLOURS = ("#1f3a68", "#c0661a", "#4f9bb8", "#6b2d5c", "#8aa63a")
+#: Tap colours. The first three step in CIE lightness L* = 25, 53, 68 (computed from sRGB), so
+#: three taps stay apart when printed in grey; line styles and markers repeat the distinction
+#: for every tap (the fourth and fifth, L* = 29 and 64, rely on them).
+TAP_COLOURS = ("#1f3a68", "#c0661a", "#5fb0cf", "#6b2d5c", "#8aa63a")
 _DASHES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1, 1, 1)))
 _MARKERS = ("o", "s", "^", "D", "v")
 

@@ -541,15 +541,21 @@ def write_report(result, out: Path) -> Path:
 # ------------------------------------------------------------------------------------------------
 
 
+def _finite_or_none(x) -> float | None:
+    """JSON has no NaN: a quantity that could not be determined is null."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
 def summary_dict(result, out: Path | None = None) -> dict:
     """The study's headline numbers for scripts: coverage, gaps, verdict, solves, files."""
     d: dict = {"name": result.spec.name, "spec_sha256": result.spec_sha256}
     t = result.tune
     if t is not None:
         d["band"] = t.band.name
-        d["coverage"] = [{"tap": n, "f_low_hz": float(t.f_low_hz[i]), "f_high_hz": float(t.f_high_hz[i]),
+        d["coverage"] = [{"tap": n, "f_low_hz": _finite_or_none(t.f_low_hz[i]), "f_high_hz": _finite_or_none(t.f_high_hz[i]),
                           "channels": int(np.sum(t.channel_tap_index == i))} for i, n in enumerate(t.tap_turns)]
-        d["gaps_hz"] = [[float(a), float(b)] for a, b in t.gaps_hz]
+        d["gaps_hz"] = [[_finite_or_none(a), _finite_or_none(b)] for a, b in t.gaps_hz]
         d["channels"] = int(t.frequencies_hz.size)
         d["channels_covered"] = int(np.sum(t.covered))
         d["suggested_taps"] = list(t.suggestion.taps) if t.suggestion is not None else None
@@ -570,6 +576,9 @@ def format_summary(result, out: Path | None = None) -> str:
     d = summary_dict(result, out)
     lines = [f"{d['name']}: study done in {d['seconds']:.0f} s"]
     for c in d.get("coverage", []):
+        if c["f_low_hz"] is None or c["f_high_hz"] is None:
+            lines.append(f"  tap {c['tap']:>3}: cannot be tuned with this capacitor")
+            continue
         lines.append(f"  tap {c['tap']:>3}: {c['f_low_hz'] / 1e3:.0f}–{c['f_high_hz'] / 1e3:.0f} kHz, "
                      f"{c['channels']} channels")
     if "gaps_hz" in d:

@@ -212,3 +212,23 @@ def test_cli_study_bad_band_fails_before_solving(tmp_path, capsys):
     assert main(["study", str(spec), "--out", str(out), "--band", "itu-9"]) == 2
     assert "--band" in capsys.readouterr().err
     assert not out.exists()
+
+
+def _cie_lightness(hex_colour: str) -> float:
+    """CIE 1976 L* of an sRGB colour (IEC 61966-2-1 transfer curve, D65 white) [published formula]."""
+    from matplotlib.colors import to_rgb
+
+    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in to_rgb(hex_colour)]
+    y = 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+    return 116 * y ** (1 / 3) - 16 if y > (6 / 29) ** 3 else (29 / 3) ** 3 * y
+
+
+def test_taps_stay_apart_in_grey_print():
+    """The first three taps differ by at least 10 L* (a clear step in grey; our design rule), and
+    every tap has its own line style and marker."""
+    from simloop.plot_style import TAP_COLOURS, tap_style
+
+    lightness = sorted(_cie_lightness(c) for c in TAP_COLOURS[:3])
+    assert min(b - a for a, b in zip(lightness, lightness[1:])) >= 10
+    styles = [(tap_style(i)["linestyle"], tap_style(i)["marker"]) for i in range(len(TAP_COLOURS))]
+    assert len(set(s[0] for s in styles)) == len(styles) and len(set(s[1] for s in styles)) == len(styles)
