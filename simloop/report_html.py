@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["SECTIONS", "format_summary", "register_section", "render_report", "summary_dict",
+__all__ = ["SECTIONS", "SUMMARIES", "format_summary", "register_section", "render_report", "summary_dict",
            "write_report"]
 
 CSS = """
@@ -547,21 +547,41 @@ def _finite_or_none(x) -> float | None:
     return x if math.isfinite(x) else None
 
 
+def summary_tune(result) -> dict | None:
+    """Coverage per tap, gaps, channels covered and suggested taps."""
+    t = result.tune
+    if t is None:
+        return None
+    return {
+        "band": t.band.name,
+        "coverage": [{"tap": n, "f_low_hz": _finite_or_none(t.f_low_hz[i]),
+                      "f_high_hz": _finite_or_none(t.f_high_hz[i]),
+                      "channels": int(np.sum(t.channel_tap_index == i))} for i, n in enumerate(t.tap_turns)],
+        "gaps_hz": [[_finite_or_none(a), _finite_or_none(b)] for a, b in t.gaps_hz],
+        "channels": int(t.frequencies_hz.size),
+        "channels_covered": int(np.sum(t.covered)),
+        "suggested_taps": list(t.suggestion.taps) if t.suggestion is not None else None,
+    }
+
+
+def summary_validation(result) -> dict | None:
+    """The verdict and its reasons."""
+    v = result.validation
+    if v is None:
+        return None
+    return {"verdict": {"status": v.verdict.status, "reasons": list(v.verdict.reasons)}}
+
+
+#: Parts of the JSON summary, in order: functions ``result -> dict | None`` whose keys are merged
+#: into the summary (a new study adds its headline numbers with one entry here).
+SUMMARIES: list = [summary_tune, summary_validation]
+
+
 def summary_dict(result, out: Path | None = None) -> dict:
     """The study's headline numbers for scripts: coverage, gaps, verdict, solves, files."""
     d: dict = {"name": result.spec.name, "spec_sha256": result.spec_sha256}
-    t = result.tune
-    if t is not None:
-        d["band"] = t.band.name
-        d["coverage"] = [{"tap": n, "f_low_hz": _finite_or_none(t.f_low_hz[i]), "f_high_hz": _finite_or_none(t.f_high_hz[i]),
-                          "channels": int(np.sum(t.channel_tap_index == i))} for i, n in enumerate(t.tap_turns)]
-        d["gaps_hz"] = [[_finite_or_none(a), _finite_or_none(b)] for a, b in t.gaps_hz]
-        d["channels"] = int(t.frequencies_hz.size)
-        d["channels_covered"] = int(np.sum(t.covered))
-        d["suggested_taps"] = list(t.suggestion.taps) if t.suggestion is not None else None
-    v = result.validation
-    if v is not None:
-        d["verdict"] = {"status": v.verdict.status, "reasons": list(v.verdict.reasons)}
+    for part in SUMMARIES:
+        d.update(part(result) or {})
     fact = result.factorisations()
     d["solves"] = {"factorisations": fact["per_stage"], "shared": fact["shared"],
                    "repeated": len(fact["repeated"])}

@@ -232,3 +232,11 @@ def test_taps_stay_apart_in_grey_print():
     assert min(b - a for a, b in zip(lightness, lightness[1:])) >= 10
     styles = [(tap_style(i)["linestyle"], tap_style(i)["marker"]) for i in range(len(TAP_COLOURS))]
     assert len(set(s[0] for s in styles)) == len(styles) and len(set(s[1] for s in styles)) == len(styles)
+
+
+def test_notes_must_be_text(tmp_path):
+    from simloop.errors import SpecError
+
+    with pytest.raises(SpecError) as err:
+        load(write_spec(tmp_path, SMALL_IMPERIAL.replace('notes = "Bench', 'notes = 5\n# "Bench')))
+    assert err.value.problems[0][0] == "notes"
