@@ -165,18 +165,53 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
     return 0
 
 
+def cmd_study(args, spec=None, source_text=None) -> int:
+    """Sweep, tune and validate in one pass sharing every solve; all outputs plus report.html."""
+    from simloop.report import write_json, write_sweep
+    from simloop.report_html import format_summary, summary_dict, write_report
+    from simloop.report_tune import write_tune
+    from simloop.report_validate import write_validate
+    from simloop.spec import load
+    from simloop.study import run_study
+
+    spec = spec or load(args.spec)
+    out = _out_dir(args, spec)
+    # Progress bars on a terminal only: quiet in logs and CI, and when stdout is for a script.
+    show = not (args.quiet or args.format == "json" or not sys.stderr.isatty())
+    progress = _Progress(not show)
+    try:
+        result = run_study(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                           band=args.band, field_v_per_m=args.field,
+                           convergence=not args.no_convergence, source_text=source_text)
+    finally:
+        progress.close()
+    from tqdm import tqdm
+
+    writers = [lambda: write_sweep(result.sweep, out, z0=args.z0), lambda: write_tune(result.tune, out),
+               lambda: write_validate(result.validation, out), lambda: [write_report(result, out)]]
+    paths = []
+    for write in tqdm(writers, desc="writing outputs", unit="file set", leave=False, disable=not show):
+        paths += write()
+    summary = summary_dict(result, out)
+    paths.append(write_json(out / "study.json", summary))
+    if args.format == "json":
+        import json
+
+        print(json.dumps(summary, indent=1, allow_nan=False, default=str))
+    elif not args.quiet:
+        print(format_summary(result, out))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
 def cmd_demo(args) -> int:
-    """Sweep, tune and validate the bundled demo loop: every output into one folder."""
+    """The study of the bundled demo loop: every output and report.html into results/demo/."""
     from simloop.spec import loads
 
     text = resources.files("simloop").joinpath("data", DEMO_SPEC).read_text()
     spec = loads(text, source=DEMO_SPEC)
     args.out = args.out or str(Path("results") / "demo")
-    args.band, args.field, args.no_convergence = "itu-1", 1e-3, False
-    sweep = _run_sweep(args, spec)
-    cmd_sweep(args, spec=spec, sweep=sweep)
-    cmd_tune(args, spec=spec, sweep=sweep)
-    return cmd_validate(args, spec=spec, sweep=sweep)
+    return cmd_study(args, spec=spec, source_text=text)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -215,8 +250,23 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
-    p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
+
+    def study_options(p):
+        p.add_argument("--band", default="itu-1",
+                       help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
+        p.add_argument("--field", type=float, default=1e-3, help="incident field for the tuner voltage [V/m]")
+        p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
+        p.add_argument("--format", choices=("text", "json"), default="text",
+                       help="summary on stdout: short text, or JSON for scripts")
+
+    p = sub.add_parser("study", parents=[debug],
+                       help="sweep, tune and validate in one pass; all outputs plus report.html")
+    common(p)
+    study_options(p)
+    p.set_defaults(func=cmd_study)
+    p = sub.add_parser("demo", parents=[debug], help="the study of the bundled demo loop into results/demo/")
     common(p, spec=False)
+    study_options(p)
     p.set_defaults(func=cmd_demo)
     return parser
 

@@ -289,6 +289,11 @@ class Spec:
     receiver: ReceiverSpec | None
     pattern: PatternSpec | None
     path: Path | None
+    #: Free text from the spec's ``notes`` key, shown (escaped) in the study report.
+    notes: str = ""
+    #: "imperial" when the frame, pitch and lead lengths were mostly written in inches or feet,
+    #: so that reports give the cut list in the builder's own units; "metric" otherwise.
+    length_system: Literal["metric", "imperial"] = "metric"
 
 
 # --- Stage 1: structure (pydantic models of what the user wrote) ---------------------------------
@@ -477,6 +482,7 @@ class _PatternIn(_Table):
 
 class _SpecIn(_Table):
     name: _Str | None = None
+    notes: _Str | None = None
     frame: _FrameIn
     winding: _WindingIn
     wire: _WireIn
@@ -882,7 +888,20 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
         receiver=receiver,
         pattern=pattern,
         path=path,
+        notes=m.notes or "",
+        length_system=_length_system(m),
     )
+
+
+_IMPERIAL_RE: Final = re.compile(r"\d\s*(in|ft)\s*\"?$")
+
+
+def _length_system(m: _SpecIn) -> Literal["metric", "imperial"]:
+    """Imperial when most of the frame, pitch and lead lengths the user wrote are in inches or feet."""
+    texts = [m.frame.width.text, m.frame.height.text, m.winding.pitch.text, m.leads.offset.text]
+    written = [t for t in texts if not t.startswith("the default")]
+    imperial = sum(_IMPERIAL_RE.search(t) is not None for t in written)
+    return "imperial" if 2 * imperial > len(written) else "metric"
 
 
 def _toml_error(err: tomllib.TOMLDecodeError, text: str, source: str) -> SpecError:
