@@ -22,9 +22,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from simloop.constants import SPEED_OF_LIGHT_M_S as C0  # speed of light [m/s]
 from simloop.geometry import DROP, WINDING, LoopGeometry
 
-C0 = 299_792_458.0  #: speed of light [m/s]
 
 #: quality -> (segment length as a multiple of the pitch, segments per turn at least)
 QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}

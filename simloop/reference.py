@@ -43,6 +43,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
+from simloop.constants import MU0_H_M as MU0, SPEED_OF_LIGHT_M_S as SPEED_OF_LIGHT  # docs/references.md §13
 from simloop.errors import ValidityWarning
 
 __all__ = [
@@ -75,12 +76,6 @@ __all__ = [
     "self_inductance_straight_wire",
     "skin_depth",
 ]
-
-MU0 = 4e-7 * np.pi
-"""Magnetic constant as used throughout the project (pre-2019 exact value). [H/m]"""
-
-SPEED_OF_LIGHT = 299_792_458.0
-"""Speed of light in vacuum. [m/s]"""
 
 RESISTIVITY_COPPER_IEC60028 = 1.0 / 58e6
 """Resistivity of the IEC 60028 international annealed copper standard at 20 °C. [Ω·m]"""

@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from simloop.constants import MAX_SEGMENTS
 from simloop.errors import SolverError
 
 SOLVER_VERSION = "pynec-2.3.4/simloop-solve-1"
@@ -147,8 +148,8 @@ def validate_payload(mesh: dict, frequency_hz: float) -> None:
     if np.any(lengths / segs < 2 * radius):
         raise SolverError("segment shorter than two wire radii: the thin-wire model is invalid")
     n_total = int(segs.sum())
-    if n_total > 20000:
-        raise SolverError(f"{n_total} segments exceed the 20000 this tool will hand to nec2++")
+    if n_total > MAX_SEGMENTS:
+        raise SolverError(f"{n_total} segments exceed the {MAX_SEGMENTS} this tool will hand to nec2++")
     for t in mesh["port_tags"]:
         if not (1 <= t <= len(segs)) or segs[t - 1] != 1:
             raise SolverError(f"port tag {t} is not a one-segment wire of the mesh")

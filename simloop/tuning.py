@@ -67,6 +67,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import F_MAX_HZ, F_MIN_HZ  # the spec's limits [Hz], docs/references.md §13
 from simloop.errors import SpecError
 from simloop.geometry import WINDING, build_loop
 from simloop.impedance import RELIABLE_BELOW, SweepResult
@@ -96,9 +97,6 @@ __all__ = [
     "tuning_capacitance",
 ]
 
-#: Lowest and highest frequency the tool models (the spec's limits). [Hz]
-F_MIN_HZ = 10e3
-F_MAX_HZ = 30e6
 #: Points of the log grid on which resonances are bracketed before root finding.
 SCAN_POINTS = 3000
 #: Overlap margin of suggested taps, as a fraction of frequency (at least; raised to the worst

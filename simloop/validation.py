@@ -50,6 +50,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
 from simloop.geometry import LoopGeometry
 from simloop.impedance import ASYMMETRY_LIMIT, WINDOW_TOP, SweepResult
@@ -93,7 +94,6 @@ Q_USED_BY_TUNE = "proximity-corrected"
 #: Far-field grid step for the average gain test. [deg]
 AGT_STEP_DEG = 5.0
 
-ETA0 = reference.MU0 * C0  #: impedance of free space [Ω]
 
 _MESH_RULES_CAUTION = {
     "segment <= 2 x pitch on the winding": "pitch rule",
@@ -868,7 +868,7 @@ def _convergence_plan(sweep: SweepResult) -> dict | None:
                   ("sweep", sweep.mesh),
                   ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
     for label, m in candidates:
-        if m.shortest_m < 2 * m.radius_m or m.n_segments > 20000:
+        if m.shortest_m < 2 * m.radius_m or m.n_segments > MAX_SEGMENTS:
             return None
     srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
     f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)

@@ -11,7 +11,7 @@ import math
 import numpy as np
 import pytest
 
-from simloop import reference
+from simloop import constants, reference
 from simloop.cli import main
 from simloop.errors import SpecError
 from simloop.impedance import run_sweep
@@ -30,7 +30,7 @@ from simloop.validation import (
     sphere_weights,
 )
 
-ETA0 = reference.MU0 * reference.SPEED_OF_LIGHT
+ETA0 = constants.ETA0_OHM
 
 
 def spec_text(style="stacked", taps="[2, 4]", width="0.4 m", height="0.3 m", metal="copper",
