@@ -352,7 +352,7 @@ class FarFieldSolution:
 def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float) -> dict:
     """Run in a worker: one fill + LU; per port one back-substitution and one full-sphere pattern.
 
-    PyNEC details (notes/pynec.md): one frequency per fr_card (an fr_card with n > 1 makes later
+    PyNEC details (docs/notes/pynec.md): one frequency per fr_card (an fr_card with n > 1 makes later
     rp_cards repeat); getters keep a running index, so the newest result is at count − 1;
     get_e_theta/get_e_phi are flat and reshape to (nφ, nθ); range 0 gives r·E in volts.
     """
@@ -408,7 +408,7 @@ def solve_far_field(mesh, env: Environment, frequencies_hz, *, step_deg: float =
     """Port admittances and the full-sphere far field of every port excitation, per frequency.
 
     One matrix factorisation per frequency serves all ports and their patterns. Free space only:
-    with a ground, NEC leaves the points below the horizon uncomputed (notes/pynec.md).
+    with a ground, NEC leaves the points below the horizon uncomputed (docs/notes/pynec.md).
 
     Parameters
     ----------

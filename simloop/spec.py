@@ -1,7 +1,7 @@
 """The spec file: TOML in, frozen dataclasses of SI floats out.
 
-``load(path)`` / ``loads(text)`` read a spec (DESIGN.md §3) in two stages, each of which collects
-every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
+``load(path)`` / ``loads(text)`` read a spec (README, "The spec file") in two stages, each of
+which collects every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
 ``dotted.key: message``:
 
 1. **Structure** — TOML syntax (with line and column), unknown keys (with the near miss:

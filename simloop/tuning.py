@@ -143,9 +143,9 @@ def _raster(start_hz: float, stop_hz: float, step_hz: float) -> np.ndarray:
 
 
 _ITU_13 = ("ITU Radio Regulations art. 5, Regions 1 and 3: broadcasting 526.5–1606.5 kHz, carriers "
-           "every 9 kHz from 531 to 1602 kHz (REFERENCES.md §7, [src secondary])")
+           "every 9 kHz from 531 to 1602 kHz (published, secondary; docs/references.md §7)")
 _ITU_2 = ("ITU Radio Regulations art. 5, Region 2: broadcasting 525–1705 kHz, carriers every 10 kHz "
-          "from 530 to 1700 kHz (REFERENCES.md §7: spacing [src secondary], range [mem])")
+          "from 530 to 1700 kHz (docs/references.md §7: spacing published, range from memory)")
 
 #: The named band plans (``itu-3`` is the same raster as ``itu-1``).
 BAND_PLANS = {

@@ -1,4 +1,8 @@
-"""The solver layer: input screening, crash and hang isolation, the cache, one factorisation per frequency."""
+"""The solver layer: input screening, crash and hang isolation, the cache, one factorisation per frequency.
+
+Sources: PyNEC 2.3.4 failure modes as we measured them (docs/notes/pynec.md, "Failure modes");
+reciprocity of a passive linear network (common practice) checked on the raw MoM admittances.
+"""
 
 import os
 import signal

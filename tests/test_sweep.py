@@ -1,4 +1,9 @@
-"""The sweep: provenance of every point, error estimates, breakdown detection, Touchstone output."""
+"""The sweep: provenance of every point, error estimates, breakdown detection, Touchstone output.
+
+Sources: our measured PyNEC accuracy windows (docs/notes/pynec.md), Touchstone 1.1/2.0
+(docs/references.md §8) read back with scikit-rf 2.2 as the independent reader, the exact round-wire
+skin effect (docs/references.md §4) and Balanis' small-loop law (docs/references.md §3).
+"""
 
 import json
 import textwrap
@@ -104,7 +109,7 @@ def test_touchstone_round_trip(result, tmp_path):
 
 def test_touchstone_s_parameters_follow_the_standard():
     # Touchstone 1.1/2.0 (IBIS Open Forum): S = (Z - R)/(Z + R) for a one-port normalised to R.
-    # Check [calc, REFERENCES §8]: Z = 1 + j997.2102 ohm, R = 50 -> S11 = 0.994885 + j0.100018.
+    # Check [calc, docs/references.md §8]: Z = 1 + j997.2102 ohm, R = 50 -> S11 = 0.994885 + j0.100018.
     net = skrf.Network(frequency=skrf.Frequency.from_f([530e3], unit="hz"),
                        z=np.array([[[1 + 997.2102j]]]), z0=np.array([[50.0]]))
     s = net.s[0, 0, 0]

@@ -1,5 +1,10 @@
 """Tuning (simloop.tuning, simloop.tuner, simloop.report_tune): resonance, Q and bandwidth of the
-tuned circuit, coverage per tap, gaps, the channel chart, tap suggestions, tuner voltage, CLI."""
+tuned circuit, coverage per tap, gaps, the channel chart, tap suggestions, tuner voltage, CLI.
+
+Sources: Terman 1943 sec. 3 (resonance, Q, bandwidth; docs/references.md §14), Kraus 1988 ch. 6
+(effective height; §3), ITU Radio Regulations art. 5 (band plans; §7), CODATA 2018 ε0 (§13), and
+scipy's brentq as an independent root finder.
+"""
 
 from __future__ import annotations
 

@@ -1,6 +1,10 @@
 """simloop validate: MoM against the quasi-static model and handbook formulas, mesh convergence,
 average gain test, real-ground resolution, and the command line.
 
+Sources: Balanis 2016 ch. 5 (small-loop radiation; docs/references.md §3), Grover 1946 and Rosa
+1908 (inductance; §1), the average gain test (common practice in NEC modelling; §9), Richardson
+1911 (§9), and our measured PyNEC windows (docs/notes/pynec.md).
+
 The loops are small and written here (4 turns, 0.4 × 0.3 m, pitch 20 mm, 20 AWG, draft mesh,
 about 600 segments): a sweep plus a validation takes one to two seconds.
 """
@@ -109,7 +113,7 @@ def test_average_gain_of_a_small_loop_pattern_is_one():
 
 
 def test_radiation_resistance_from_the_vector_area_is_balanis():
-    # Balanis (2016) ch. 5: R_r = 320 π⁴ (N A / λ²)²; REFERENCES §3 check [calc]: N = 10,
+    # Balanis (2016) ch. 5: R_r = 320 π⁴ (N A / λ²)²; docs/references.md §3 check [calc]: N = 10,
     # A = 1 m², 530 kHz → 30.4488 µΩ. The vector area of ten stacked 1 m squares is 10 m². The
     # constant 320π⁴ takes η0 = 120π; with η0 = μ0·c the value is lower by 376.730/376.991.
     starts, ends = reference.box_coil_pieces(1.0, 1.0, 10, 5e-3)
@@ -128,13 +132,13 @@ def test_rosa_b_reproduces_rosas_table():
 
 
 @pytest.mark.parametrize("side, turns, pitch, radius, partial_sum", [
-    # REFERENCES §1 box-coil check values [calc]: partial-inductance sum of N stacked squares
+    # docs/references.md §1 box-coil check values [calc]: partial-inductance sum of N stacked squares
     (1.0, 10, 5e-3, 0.5e-3, 303.350e-6),
     (1.0, 10, 10e-3, 0.5e-3, 254.759e-6),
     (0.6, 20, 3e-3, 0.25e-3, 594.470e-6),
 ])
 def test_round_wire_correction_closes_most_of_the_sheet_formula_gap(side, turns, pitch, radius, partial_sum):
-    # Grover's square-coil formula is a current sheet; REFERENCES §1: 1–4 % (here up to 6.7 %)
+    # Grover's square-coil formula is a current sheet; docs/references.md §1: 1–4 % (here up to 6.7 %)
     # below the filament sum. Rosa's round-wire correction brings it within 2.5 % (the rest is
     # the sheet formula's own approximation; the DC value of A adds ≈ +0.2 %).
     sheet = float(reference.inductance_square_coil_grover1946(side, turns, turns * pitch))
@@ -207,13 +211,13 @@ def test_wire_loss_and_radiation_of_the_full_tap(stacked):
     spec, sweep, result = stacked
     f_low = min(result.check_frequencies_hz)
     # NEC's conductivity load against the exact round-wire skin effect × path length: within
-    # 0.1–0.3 % on a single loop (notes/pynec.md), 1 % allowed for the self-capacitance removal at
+    # 0.1–0.3 % on a single loop (docs/notes/pynec.md), 1 % allowed for the self-capacitance removal at
     # the lowest check frequency; higher up the current is no longer uniform along the 5.9 m path
     # (measured 1.03 % at 0.38 × self-resonance), so 2 % there
     for c in rows(result, "R_loss skin", tap=4):
         assert abs(c.rel_diff_mom) < (0.01 if c.frequency_hz == f_low else 0.02), c
     # lossless input resistance against the small-loop law well below self-resonance
-    # (notes/pynec.md: within ~1 %; Balanis 2016 ch. 5)
+    # (docs/notes/pynec.md: within ~1 %; Balanis 2016 ch. 5)
     r = next(c for c in rows(result, "R_rad", tap=4) if c.frequency_hz == f_low)
     assert abs(r.rel_diff_mom) < 0.02
     # proximity-corrected Q is lower than skin-only Q, and tune uses the corrected one
@@ -236,7 +240,7 @@ def test_direct_self_resonance_brackets_the_model(stacked):
 
 
 def test_average_gain_of_a_lossless_loop_in_free_space():
-    # common NEC practice (REFERENCES §9): a lossless antenna in free space has average gain 1;
+    # common NEC practice (docs/references.md §9): a lossless antenna in free space has average gain 1;
     # accept 0.95–1.05
     spec, sweep, result = validated(spec_text("stacked", taps="[4]", metal="lossless"), convergence=False)
     assert len(result.average_gain) == 1
@@ -293,7 +297,7 @@ def test_real_ground_resistance_below_resolution_is_a_flag(tmp_path):
     for c in lossless:
         assert (c.mom is None and c.flag == BELOW_RESOLUTION) or c.mom >= GROUND_RESOLUTION_OHM
     # this small loop's ground loss (NEC showed −0.05 Ω for a lossless coil over Sommerfeld
-    # ground, notes/pynec.md) lies below the resolution: flagged, and null in the JSON
+    # ground, docs/notes/pynec.md) lies below the resolution: flagged, and null in the JSON
     assert any(c.flag == BELOW_RESOLUTION for c in lossless)
     from simloop.report_validate import write_validate
 

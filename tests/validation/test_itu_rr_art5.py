@@ -1,6 +1,6 @@
 """MW broadcast band plans against the ITU Radio Regulations, article 5.
 
-Values and marks from /work/shared/REFERENCES.md §7: Regions 1 and 3, carriers every 9 kHz from 531
+Sources: ITU Radio Regulations art. 5; values and marks in docs/references.md §7: Regions 1 and 3, carriers every 9 kHz from 531
 to 1602 kHz [src secondary]; Region 2, 10 kHz spacing [src secondary], carriers 530–1700 kHz [mem].
 """
 

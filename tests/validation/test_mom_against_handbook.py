@@ -1,6 +1,7 @@
 """The MoM sweep against published formulas and the quasi-static partial-inductance model.
 
-Check values are computed from the formulas named beside them (REFERENCES.md marks them [calc]).
+Sources: Terman 1943, Grover 1946, Balanis 2016 (docs/references.md §1, §3). Check values are
+computed from the formulas named beside them (docs/references.md marks them [computed]).
 """
 
 import textwrap
@@ -41,7 +42,7 @@ def single_turn():
 
 def test_single_turn_inductance_matches_terman(single_turn):
     # Terman, Radio Engineers' Handbook (1943) sec. 2 / Grover (1946): 1.0 x 0.6 m rectangle of
-    # 2 mm wire, high frequency: 3.74570 uH [REFERENCES §1, calc]. The model also carries the tuner
+    # 2 mm wire, high frequency: 3.74570 uH [docs/references.md §1, calc]. The model also carries the tuner
     # lead detour (5 cm drop, run and collector); its increment is taken from Grover's partial
     # inductances of the same pieces, so the check is Terman + lead increment.
     terman = reference.inductance_rectangle_terman1943(1.0, 0.6, 2e-3)
