@@ -24,8 +24,9 @@ ROOT = Path(__file__).resolve().parents[1]
 SKIP_DIRS = {".git", ".venv", "results", "__pycache__", ".pytest_cache", "build", "dist"}
 TEXT_SUFFIXES = {".py", ".md", ".toml", ".txt", ".cfg", ".ini", ".yml", ".yaml", ".json", ".csv", ""}
 
-# Absolute paths of a machine: /work/, /home/, /root/, /tmp/ (as a citation; tests use tmp_path),
-# /Users/ and C:\Users\. The leading character class keeps URLs and relative paths out.
+# Absolute paths of a machine: the work, home, root, temp and Users folders at the root of a Unix or
+# Windows file system (tests use tmp_path, never a literal temp folder). The leading character
+# class keeps URLs and relative paths out.
 _ABSOLUTE = re.compile(r"(?<![\w.:/~-])/(?:" + "|".join(["wo" + "rk", "ho" + "me", "ro" + "ot", "t" + "mp",
                                                          "Us" + "ers"]) + r")/"
                        + r"|[A-Za-z]:\\\\?Us" + r"ers\\")
@@ -74,7 +75,7 @@ def _hits(pattern: re.Pattern) -> list[str]:
 
 def test_the_checks_catch_what_they_are_meant_to_catch():
     # The patterns themselves, on lines written to fail and to pass.
-    bad_paths = ["see /" + "work/shared/x", "/" + "home/me/f.py", "cd /" + "root/", "C:\\" + "Users\\me"]
+    bad_paths = ["see /" + "work/sha" + "red/x", "/" + "home/me/f.py", "cd /" + "root/", "C:\\" + "Users\\me"]
     good_paths = ["https://example.org/home/x", "tmp_path / 'a'", "results/<name>/"]
     assert all(_ABSOLUTE.search(s) for s in bad_paths)
     assert not any(_ABSOLUTE.search(s) for s in good_paths)
