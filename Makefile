@@ -22,6 +22,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
+	$(BIN)/python benchmarks/bench_timing.py
 
 clean:
 	rm -rf $(VENV) results/demo

@@ -6,8 +6,6 @@ kernel 1/R numerically in both variables (nested adaptive quadrature), independe
 library's analytic inner integral.
 """
 
-import time
-
 import numpy as np
 import pytest
 from scipy import integrate
@@ -280,18 +278,16 @@ def test_partial_sum_rejects_overlapping_collinear_pieces():
         inductance_partial_sum(starts, starts, 1e-3)
 
 
-def test_partial_sum_600_pieces_is_fast():
-    # 10 turns, each side split into 15 pieces: 600 pieces, 179 700 pairs (brief: well under 2 s)
+def test_partial_sum_of_600_pieces_adds_the_joint_terms():
+    # 10 turns, each side split into 15 pieces: 600 pieces, 179 700 pairs. (Its speed, target
+    # under 2 s, is measured in benchmarks/bench_timing.py, not asserted here.)
     starts, ends = box_coil_pieces(0.8, 0.6, 10, 6e-3)
     t = np.linspace(0.0, 1.0, 16)
     s = (starts[:, None, :] + (ends - starts)[:, None, :] * t[None, :-1, None]).reshape(-1, 3)
     e = (starts[:, None, :] + (ends - starts)[:, None, :] * t[None, 1:, None]).reshape(-1, 3)
     assert s.shape == (600, 3)
-    t0 = time.perf_counter()
     L_split = inductance_partial_sum(s, e, 0.4e-3)
-    elapsed = time.perf_counter() - t0
     L_whole = inductance_partial_sum(starts, ends, 0.4e-3)
     # 14 joints per side, 40 sides, μ0 r/(2π) each (see the splitting test)
     predicted = 14 * 40 * MU0 * 0.4e-3 / (2 * np.pi)
     assert L_split - L_whole == pytest.approx(predicted, abs=0.0, rel=0.02)
-    assert elapsed < 2.0
