@@ -2,7 +2,8 @@
 
 Sources: common practice for reproducible research code — a citation must resolve for every reader
 (published works, standards, libraries, or files in this repository). The rules are written out in
-docs/references.md (introduction).
+docs/references.md (introduction) and docs/ARCHITECTURE.md ("Citations"), which also
+states the layers checked at the end of this file.
 
 * no absolute path of a developer's machine in any tracked file;
 * no citation of reading material kept outside the repository (its file names are built below from
@@ -116,3 +117,66 @@ def test_cited_reference_sections_and_docs_exist():
 def test_every_test_module_names_its_sources(path):
     doc = ast.get_docstring(ast.parse(path.read_text(encoding="utf-8"))) or ""
     assert "Sources:" in doc, f"{path.name}: say in the module docstring where its check values come from"
+
+
+# --- layers (docs/ARCHITECTURE.md) ----------------------------------------------------------------
+
+#: Layer of every module; a module may import from its own layer and those below. New modules get
+#: a line here and in docs/ARCHITECTURE.md.
+LAYERS = {
+    "constants": 1, "units": 1, "errors": 1, "reference": 1,
+    "spec": 2, "geometry": 2, "mesh": 2, "tuner": 2, "losses": 2, "receiver": 2,
+    "solve": 3, "lumped": 3, "circuit": 3,
+    "impedance": 4, "tuning": 4, "validation": 4, "couple": 4, "pattern": 4, "study": 4, "explore": 4,
+    "report": 5, "report_tune": 5, "report_validate": 5, "plots": 5,
+    "cli": 6, "__init__": 6,
+}
+PACKAGE = ROOT / "simloop"
+
+
+def _simloop_imports(path: Path) -> set[str]:
+    """Modules of simloop imported anywhere in a file (top level or inside functions)."""
+    names = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.ImportFrom) and node.module and node.module.split(".")[0] == "simloop":
+            parts = node.module.split(".")
+            if len(parts) > 1:
+                names.add(parts[1])
+            else:  # from simloop import reference / __version__
+                names.update(a.name for a in node.names if (PACKAGE / f"{a.name}.py").exists())
+        elif isinstance(node, ast.Import):
+            names.update(a.name.split(".")[1] for a in node.names
+                         if a.name.startswith("simloop.") and len(a.name.split(".")) > 1)
+    return names
+
+
+def _modules() -> list[Path]:
+    return sorted(PACKAGE.glob("*.py"))
+
+
+def test_every_module_has_a_layer_and_is_described():
+    architecture = (ROOT / "docs" / "ARCHITECTURE.md").read_text(encoding="utf-8")
+    for path in _modules():
+        assert path.stem in LAYERS, f"simloop/{path.name}: give it a layer here and in docs/ARCHITECTURE.md"
+        assert re.search(rf"\b{re.escape(path.stem)}\b", architecture), f"docs/ARCHITECTURE.md omits {path.stem}"
+
+
+def test_modules_import_only_from_their_layer_and_below():
+    wrong = []
+    for path in _modules():
+        for name in _simloop_imports(path):
+            if name in LAYERS and LAYERS[name] > LAYERS.get(path.stem, 0):
+                wrong.append(f"simloop/{path.name} (layer {LAYERS.get(path.stem)}) imports {name} "
+                             f"(layer {LAYERS[name]})")
+    assert not wrong, "\n".join(wrong)
+
+
+def test_only_the_nec_module_imports_pynec():
+    importers = []
+    for path in _modules():
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            mods = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                    else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            if any(m.split(".")[0] == "PyNEC" for m in mods):
+                importers.append(path.name)
+    assert set(importers) <= {"solve.py"}, importers
