@@ -81,7 +81,7 @@ def test_loop_to_rod_example(z, expected_uh):
     # 10-turn 1 m square loop (turns taken coincident), coaxial rod 10 × 100 mm with 80 turns.
     # M = μ0 μ_rod N_rod A_rod (H/I) with H from the on-axis rectangle field. μ_rod = 43.98 is
     # printed rounded; it is μ_i = 400 with the prolate-spheroid demagnetising factor of
-    # docs/references.md §6 (Osborn 1945, m = 10), evaluated here unrounded (43.9845).
+    # docs/references.md §6 (Osborn 1945, m = 10), evaluated here unrounded (43.9847).
     m = 10.0
     root = np.sqrt(m**2 - 1)
     n_d = ((m / root) * np.log(m + root) - 1) / (m**2 - 1)
