@@ -28,6 +28,7 @@ browser:
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
+	$(BIN)/python benchmarks/bench_timing.py
 
 clean:
 	rm -rf $(VENV) results/demo

@@ -1,6 +1,6 @@
 """The impedance sweep: where to trust the MoM, what to fit, and how far to trust every point.
 
-PyNEC is right for these loops only inside a window (notes measured with PyNEC 2.3.4):
+PyNEC is right for these loops only inside a window (measured with PyNEC 2.3.4, docs/notes/pynec.md):
 
 * segments ≲ 2 × pitch, or the inductance comes out low (the pitch rule, a mesh property);
 * segments ≥ 7e-5 λ (never < 5e-5 λ), or the reactance breaks down (a frequency floor);

@@ -22,9 +22,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from simloop.constants import SPEED_OF_LIGHT_M_S as C0  # speed of light [m/s]
 from simloop.geometry import DROP, WINDING, LoopGeometry
 
-C0 = 299_792_458.0  #: speed of light [m/s]
 
 #: quality -> (segment length as a multiple of the pitch, segments per turn at least)
 QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
@@ -227,6 +227,7 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
                   f"sweep points below it come from the fitted model")
     rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail))
     n = mesh.n_segments
+    # cost and memory laws fitted to our PyNEC 2.3.4 timings (docs/notes/pynec.md, "Speed")
     seconds = 1.8e-7 * n**2 + 2.9e-10 * n**3
     memory_mb = 75 + 32 * n**2 / 1e6
     rules.append(Rule("size", "pass" if n <= 6000 else "warn",

@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from simloop.constants import MAX_SEGMENTS
 from simloop.errors import SolverError
 
 SOLVER_VERSION = "pynec-2.3.4/simloop-solve-1"
@@ -147,8 +148,8 @@ def validate_payload(mesh: dict, frequency_hz: float) -> None:
     if np.any(lengths / segs < 2 * radius):
         raise SolverError("segment shorter than two wire radii: the thin-wire model is invalid")
     n_total = int(segs.sum())
-    if n_total > 20000:
-        raise SolverError(f"{n_total} segments exceed the 20000 this tool will hand to nec2++")
+    if n_total > MAX_SEGMENTS:
+        raise SolverError(f"{n_total} segments exceed the {MAX_SEGMENTS} this tool will hand to nec2++")
     for t in mesh["port_tags"]:
         if not (1 <= t <= len(segs)) or segs[t - 1] != 1:
             raise SolverError(f"port tag {t} is not a one-segment wire of the mesh")
@@ -351,7 +352,7 @@ class FarFieldSolution:
 def _solve_far_field(mesh: dict, env: dict, frequency_hz: float, step_deg: float) -> dict:
     """Run in a worker: one fill + LU; per port one back-substitution and one full-sphere pattern.
 
-    PyNEC details (notes/pynec.md): one frequency per fr_card (an fr_card with n > 1 makes later
+    PyNEC details (docs/notes/pynec.md): one frequency per fr_card (an fr_card with n > 1 makes later
     rp_cards repeat); getters keep a running index, so the newest result is at count − 1;
     get_e_theta/get_e_phi are flat and reshape to (nφ, nθ); range 0 gives r·E in volts.
     """
@@ -407,7 +408,7 @@ def solve_far_field(mesh, env: Environment, frequencies_hz, *, step_deg: float =
     """Port admittances and the full-sphere far field of every port excitation, per frequency.
 
     One matrix factorisation per frequency serves all ports and their patterns. Free space only:
-    with a ground, NEC leaves the points below the horizon uncomputed (notes/pynec.md).
+    with a ground, NEC leaves the points below the horizon uncomputed (docs/notes/pynec.md).
 
     Parameters
     ----------

@@ -1,7 +1,7 @@
 """The spec file: TOML in, frozen dataclasses of SI floats out.
 
-``load(path)`` / ``loads(text)`` read a spec (DESIGN.md §3) in two stages, each of which collects
-every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
+``load(path)`` / ``loads(text)`` read a spec (README, "The spec file") in two stages, each of
+which collects every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
 ``dotted.key: message``:
 
 1. **Structure** — TOML syntax (with line and column), unknown keys (with the near miss:
@@ -60,6 +60,7 @@ import numpy as np
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PlainValidator, ValidationError
 from pydantic_core import PydanticCustomError
 
+from simloop.constants import F_MAX_HZ as _F_MAX_HZ, F_MIN_HZ as _F_MIN_HZ  # docs/references.md §13
 from simloop.errors import SpecError
 from simloop.units import (
     as_written,
@@ -111,10 +112,8 @@ SOIL_CLASSES: Final[dict[str, tuple[float, float]]] = {
     "very-dry": (3.0, 1e-4),
 }
 
-# Limits of the model (our own choices, see DESIGN.md §5): the MoM solve and the fitted model are
-# built for MF; 10 kHz .. 30 MHz brackets every use of a medium-wave loop with a wide margin.
-_F_MIN_HZ: Final = 10e3
-_F_MAX_HZ: Final = 30e6
+# Limits of the model (our own choices, docs/references.md §13): _F_MIN_HZ/_F_MAX_HZ come from
+# simloop.constants (10 kHz .. 30 MHz brackets every use of a medium-wave loop with a wide margin).
 _MAX_POINTS: Final = 2001
 _MAX_TAPS: Final = 8
 _LEAD_OFFSET_DIAMETERS: Final = 4.0  # leads at least 4 wire diameters from the winding

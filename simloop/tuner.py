@@ -51,7 +51,7 @@ from typing import Final
 
 import numpy as np
 
-from simloop.reference import MU0, SPEED_OF_LIGHT
+from simloop.constants import EPSILON0_F_M  # 1/(μ0 c²), docs/references.md §13
 
 __all__ = [
     "DEFAULT_TUNER",
@@ -67,10 +67,6 @@ __all__ = [
     "parallel_plate_capacitance",
     "tuner_from_spec",
 ]
-
-#: Electric constant from the project's μ0 and c, 1/(μ0 c²) = 8.854 187 817e-12 F/m (within
-#: 6e-10 of CODATA 2018's 8.854 187 8128e-12). [F/m]
-EPSILON0_F_M: Final = 1.0 / (MU0 * SPEED_OF_LIGHT**2)
 
 
 @dataclass(frozen=True)

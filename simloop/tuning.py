@@ -67,6 +67,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import F_MAX_HZ, F_MIN_HZ  # the spec's limits [Hz], docs/references.md §13
 from simloop.errors import SpecError
 from simloop.geometry import WINDING, build_loop
 from simloop.impedance import RELIABLE_BELOW, SweepResult
@@ -96,9 +97,6 @@ __all__ = [
     "tuning_capacitance",
 ]
 
-#: Lowest and highest frequency the tool models (the spec's limits). [Hz]
-F_MIN_HZ = 10e3
-F_MAX_HZ = 30e6
 #: Points of the log grid on which resonances are bracketed before root finding.
 SCAN_POINTS = 3000
 #: Overlap margin of suggested taps, as a fraction of frequency (at least; raised to the worst
@@ -145,9 +143,9 @@ def _raster(start_hz: float, stop_hz: float, step_hz: float) -> np.ndarray:
 
 
 _ITU_13 = ("ITU Radio Regulations art. 5, Regions 1 and 3: broadcasting 526.5–1606.5 kHz, carriers "
-           "every 9 kHz from 531 to 1602 kHz (REFERENCES.md §7, [src secondary])")
+           "every 9 kHz from 531 to 1602 kHz (published, secondary; docs/references.md §7)")
 _ITU_2 = ("ITU Radio Regulations art. 5, Region 2: broadcasting 525–1705 kHz, carriers every 10 kHz "
-          "from 530 to 1700 kHz (REFERENCES.md §7: spacing [src secondary], range [mem])")
+          "from 530 to 1700 kHz (docs/references.md §7: spacing published, range from memory)")
 
 #: The named band plans (``itu-3`` is the same raster as ``itu-1``).
 BAND_PLANS = {

@@ -33,7 +33,7 @@ sphere with sin θ weights and divides it by the input power ½ Re(V I*). Energy
 it 1 for any lossless model; PyNEC's ``get_gain_mean`` is a mean of dB values and is not it.
 
 Over real ground a loss-free input resistance that is negative or below ~0.1 Ω is not resolved
-by the solver (notes/pynec.md: a lossless coil showed −0.05 Ω over Sommerfeld ground); it is
+by the solver (docs/notes/pynec.md: a lossless coil showed −0.05 Ω over Sommerfeld ground); it is
 reported as below the solver's resolution, never as a number.
 
 This module computes only: no printing and no files (:mod:`simloop.report_validate` writes).
@@ -50,6 +50,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
 from simloop.geometry import LoopGeometry
 from simloop.impedance import ASYMMETRY_LIMIT, WINDOW_TOP, SweepResult
@@ -57,18 +58,18 @@ from simloop.losses import proximity_factors, proximity_resistance, winding_leng
 from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
 from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
 
-#: Over real ground, a loss-free input resistance below this is not resolved (notes/pynec.md:
+#: Over real ground, a loss-free input resistance below this is not resolved (docs/notes/pynec.md:
 #: a lossless coil showed R = −0.05 Ω with Sommerfeld ground). [Ω]
 GROUND_RESOLUTION_OHM = 0.1
 BELOW_RESOLUTION = "below solver resolution"
-#: Accepted range of the average gain test (common NEC practice, REFERENCES §9).
+#: Accepted range of the average gain test (common NEC practice, docs/references.md §9).
 AGT_ACCEPT = (0.95, 1.05)
 #: Beyond this range the input resistance is not merely imprecise but wrong.
 AGT_BROKEN = (0.8, 1.25)
 #: Convergence meshes, as multiples of the sweep mesh's target segment length.
 COARSE_FACTOR = 1.5
 FINE_FACTOR = 0.75
-#: Exponent of the pitch-rule error in the winding segment length (notes/pynec.md: Richardson
+#: Exponent of the pitch-rule error in the winding segment length (docs/notes/pynec.md: Richardson
 #: extrapolation with 1.5 from the 2.5 and 1.67 × pitch pair recovered L within 0.1–0.4 %).
 RICHARDSON_ORDER = 1.5
 #: Observed orders outside this range do not count as a trend.
@@ -79,7 +80,7 @@ SPREAD_OK, SPREAD_CAUTION = 0.02, 0.05
 #: Spread of the series resistance over the meshes above which Q is less certain.
 R_SPREAD_CAUTION = 0.05
 #: MoM copper loss against the exact skin-effect formula (NEC type-5 loads were within
-#: 0.1–0.3 % on a single loop, notes/pynec.md); beyond this something else is in the loss.
+#: 0.1–0.3 % on a single loop, docs/notes/pynec.md); beyond this something else is in the loss.
 R_LOSS_CAUTION = 0.05
 #: Direct-MoM check of the self-resonance: bracket either side of the model's prediction; a
 #: caution when the misfit moves the model's impedance at the top of the band by more than this.
@@ -93,7 +94,6 @@ Q_USED_BY_TUNE = "proximity-corrected"
 #: Far-field grid step for the average gain test. [deg]
 AGT_STEP_DEG = 5.0
 
-ETA0 = reference.MU0 * C0  #: impedance of free space [Ω]
 
 _MESH_RULES_CAUTION = {
     "segment <= 2 x pitch on the winding": "pitch rule",
@@ -689,7 +689,7 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
         l_full, _ = _handbook_inductance(spec, big_n)
         hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
         note += (f"; Medhurst C = {float(c_med) * 1e12:.1f} pF for the whole winding as a solenoid of equal "
-                 f"perimeter (REFERENCES §5: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
+                 f"perimeter (docs/references.md §5: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
     return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
                   "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
                   "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, note=note)
@@ -868,7 +868,7 @@ def _convergence_plan(sweep: SweepResult) -> dict | None:
                   ("sweep", sweep.mesh),
                   ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
     for label, m in candidates:
-        if m.shortest_m < 2 * m.radius_m or m.n_segments > 20000:
+        if m.shortest_m < 2 * m.radius_m or m.n_segments > MAX_SEGMENTS:
             return None
     srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
     f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)

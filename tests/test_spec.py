@@ -1,4 +1,8 @@
-"""Reading spec files (simloop.spec): the DESIGN.md §3 example, defaults, and every bad input."""
+"""Reading spec files (simloop.spec): the full example spec, defaults, and every bad input.
+
+Sources: the spec format is the project's own (README, "The spec file"); unit and wire values cite
+ASTM B258, IEC 60028 and ITU-R P.527 via docs/references.md §4 and §7.
+"""
 
 from __future__ import annotations
 
@@ -24,7 +28,7 @@ from simloop.spec import (
 )
 from simloop.units import awg_diameter_m
 
-# Copied verbatim from DESIGN.md §3 (comments included, they are part of what must parse).
+# The project's full example spec, every section (comments included, they are part of what must parse).
 DESIGN_EXAMPLE = '''\
 name = "shed-loop"                 # results go to results/<name>/ unless --out is given
 
@@ -113,7 +117,7 @@ def problems_of(text: str, source: str = "<string>") -> SpecError:
     return err.value
 
 
-# --- the DESIGN.md example -----------------------------------------------------------------------
+# --- the full example spec -----------------------------------------------------------------------
 
 def test_design_example_parses_to_si():
     spec = loads(DESIGN_EXAMPLE)
@@ -314,7 +318,7 @@ def test_aught_gauge():
 # --- ground --------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize(("soil", "eps", "sigma"), [
-    # ITU-R P.527 classes, values from memory (read off its Fig. 1), REFERENCES.md §7 [mem]
+    # ITU-R P.527 classes, values from memory (read off its Fig. 1), docs/references.md §7 [mem]
     ("sea-water", 70.0, 5.0), ("wet", 30.0, 1e-2), ("fresh-water", 80.0, 3e-3),
     ("medium-dry", 15.0, 1e-3), ("very-dry", 3.0, 1e-4),
 ])
