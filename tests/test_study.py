@@ -1,6 +1,6 @@
 """The study: one pass that shares every solve, its report and its summary.
 
-Outside references used here: the international inch (exactly 25.4 mm, international yard and
+Sources: the international inch (exactly 25.4 mm, international yard and
 pound agreement, 1959) for the builder's units, and the perimeter of the rectangular turns the
 geometry is specified to have (computed by hand from the spec, not from the geometry code) for
 the cut list.
