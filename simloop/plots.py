@@ -78,7 +78,11 @@ def _tuning_capacitance_panel(ax, r, handles):
     ax.axhspan(c_lo, c_hi, color="tab:green", alpha=0.10, lw=0)
     for c in (c_lo, c_hi):
         ax.axhline(c, color="tab:green", lw=0.8, alpha=0.7)
-    handles.append(Patch(facecolor="tab:green", alpha=0.25, label=f"tuner range {c_lo:.4g} to {c_hi:.4g} pF"))
+    from simloop.units import format_quantity
+
+    handles.append(Patch(facecolor="tab:green", alpha=0.25,
+                         label=f"tuner range {format_quantity(r.tuner.min_f, 'capacitance', 3)} to "
+                               f"{format_quantity(r.tuner.max_f, 'capacitance', 3)}"))
     for g0, g1 in r.gaps_hz / 1e3:
         ax.annotate(f"gap\n{g0:.0f}–{g1:.0f} kHz", xy=(0.5 * (g0 + g1), 0.03),
                     xycoords=("data", "axes fraction"), xytext=(4, 0), textcoords="offset points",
@@ -152,7 +156,7 @@ def _q_panel(ax, r):
         _channel_markers(ax, f_k[sel], r.q_loaded[sel], r.reliable[sel], col, 3)
     ax.plot([], [], "k-", lw=0.8, alpha=0.5, label="every tap where the tuner reaches it")
     ax.plot([], [], "ko", ms=3, label="chosen tap")
-    ax.legend(fontsize=7.5, loc="upper right")
+    ax.legend(fontsize=7.5, loc="lower right")
     ax.set_ylabel(f"loaded Q\n(capacitor Q {r.tuner.q:.4g})")
     ax.grid(alpha=0.3)
 
@@ -170,7 +174,9 @@ def _bandwidth_panel(ax, r):
     ax.axhline(audio, color="k", lw=0.9, ls=":",
                label=f"channel audio ±{r.band.audio_hz / 1e3:g} kHz: below, the loop cuts treble")
     ax.axhspan(0, audio, color="tab:orange", alpha=0.10, lw=0)
-    ax.plot([], [], "k--", lw=1.3, label="without proximity effect (narrower)")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        gap = np.nanmax(np.abs(1 - r.bandwidth_no_proximity_hz / r.bandwidth_hz)) if np.any(r.covered) else 0.0
+    ax.plot([], [], "k--", lw=1.3, label=f"without proximity effect (narrower, by up to {gap:.1%})")
     ax.legend(fontsize=7.5, loc="upper left")
     ax.set_ylabel("−3 dB bandwidth [kHz]")
     both = np.concatenate([r.bandwidth_hz, r.bandwidth_no_proximity_hz]) / 1e3
@@ -274,9 +280,10 @@ def plot_slide_scale(result, path: Path) -> Path:
                         ha="center", va="bottom")
                 last_x = x
     ax.text(0, height_in - 0.12,
-            f"{r.name}: slide scale, 1:1 (print at 100 %, check the ruler: 10 mm between numbered "
-            f"ticks); 0 = plates just not overlapping; kHz per tap; {t.describe()[:90]}",
-            fontsize=5, ha="left", va="top")
+            f"{r.name}: slide scale 1:1 (1 mm on paper = 1 mm of slide). Print at 100 % (no "
+            f"fit-to-page) and check the ruler: 10 mm between numbered ticks. 0 = plates just not "
+            f"overlapping; channel marks in kHz, one strip per tap.", fontsize=5, ha="left", va="top")
+    ax.text(0, height_in - 0.32, t.describe(), fontsize=4.5, ha="left", va="top")
     fig.savefig(path, dpi=300)
     plt.close(fig)
     return path

@@ -313,3 +313,81 @@ def test_lossless_single_turn_radiation_resistance_follows_balanis():
         r_balanis = 320 * np.pi**4 * (0.48 / lam**2) ** 2
         assert r == pytest.approx(r_balanis, rel=0.06, abs=0)
         assert r >= r_balanis  # the leads only add area
+
+
+# --- 3/5/6. Tune outputs: slide scale 1:1, the same chart rows, plain words -----------------------
+
+@pytest.fixture(scope="module")
+def plate_tune(tmp_path_factory):
+    """The fast 3-turn loop with a PET-film plate tuner: taps 3 then 2 up the band."""
+    from tests.test_tuning import tiny_text
+
+    text = tiny_text(taps=(1, 2, 3), lo="1.5 nF", hi="9 nF").split("[tuner]")[0] + textwrap.dedent("""
+        [tuner]
+        kind = "plates"
+        plate_width = "20 cm"
+        plate_length = "30 cm"
+        dielectric_thickness = "0.1 mm"
+        dielectric = "polyester"
+        travel = "30 cm"
+        stray = "1.5 nF"
+        """)
+    out = tmp_path_factory.mktemp("plate-tune")
+    path = out / "tiny-plates.toml"
+    path.write_text(text)
+    return path, out
+
+
+def test_tune_outputs_for_a_plate_tuner(plate_tune, capsys):
+    import json
+
+    path, out = plate_tune
+    assert main(["tune", str(path), "--out", str(out), "--no-cache", "--field", "500uV/m"]) == 0
+    summary = capsys.readouterr().out
+    for name in ("tuning.json", "tuning.csv", "tuning.png", "slide-scale.svg", "slide-scale.png"):
+        assert (out / name).stat().st_size > 0
+    data = json.loads((out / "tuning.json").read_text())
+    assert data["tuner_at_field"]["field_v_per_m"] == pytest.approx(5e-4, rel=1e-12, abs=0)
+    # PET film: tan δ 0.016 at 1 MHz (Mylar bulletin, approximate) → Q 62.5, and the output says so.
+    assert data["tuner"]["q"] == pytest.approx(62.5, rel=1e-12, abs=0)
+    assert "polyester" in data["tuner"]["q_source"] and "capacitor Q 62.5" in summary
+    # Kept keys.
+    assert {"f_low_hz", "f_high_hz"} <= set(data["taps"]["3"])
+    assert {"frequency_hz", "tap", "capacitance_f", "bandwidth_hz"} <= set(data["channels"][0])
+    assert "gaps_hz" in data
+    # One span per tap, 3 turns at the bottom, and the switch with its reason.
+    taps = [c["tap"] for c in data["channels"]]
+    assert taps[0] == 3 and taps == sorted(taps, reverse=True)
+    assert len(data["switches"]) == 1 and data["switches"][0]["from_tap"] == 3
+    assert "tuner's minimum" in data["switches"][0]["reason"]
+    # The slide scale is 1:1: its width is the travel plus 2 × 0.6 in of margin (SVG in points,
+    # 72 pt per inch by the SVG/CSS definition).
+    svg = ET.parse(out / "slide-scale.svg").getroot()
+    width_pt = float(svg.get("width").removesuffix("pt"))
+    assert width_pt == pytest.approx((0.30 / 0.0254 + 1.2) * 72, rel=1e-3, abs=0)
+    # Plain words for users: no internal documents, no "from memory", no command that does not exist.
+    text = summary + (out / "tuning.json").read_text()
+    for word in FORBIDDEN:
+        assert word not in text, word
+
+
+def test_terminal_chart_lists_the_channels_of_the_png_table(plate_tune):
+    import dataclasses
+
+    from simloop.impedance import run_sweep
+    from simloop.report_tune import chart_selection, chart_table, format_tune_summary
+    from simloop.tuning import run_tune
+
+    path, _ = plate_tune
+    spec = loads(path.read_text(), source=str(path))
+    r = run_tune(spec, run_sweep(spec, cache=None))
+    rows = chart_table(r)  # plot_tuning draws exactly these rows
+    summary = format_tune_summary(r)
+    for row in rows:
+        assert row in summary
+    sel = chart_selection(r)
+    # Both ends of every tap's span are listed.
+    idx = r.channel_tap_index
+    ends = {j for j in range(1, idx.size) if idx[j] != idx[j - 1]} | {j - 1 for j in range(1, idx.size) if idx[j] != idx[j - 1]}
+    assert ends <= set(sel.tolist())
+    assert dataclasses.is_dataclass(r.coverage) and dataclasses.is_dataclass(r.chart)
