@@ -290,7 +290,7 @@ class RangeTuner:
     def describe(self) -> str:
         what = ("default tuner (no [tuner] in the spec): a 12–365 pF single-gang air-variable, "
                 "common practice" if self.source == "default" else "variable capacitor")
-        return f"{what}, {_c(self.min_f)} to {_c(self.max_f)}, Q {self.q:.4g} ({self.q_source})"
+        return f"{what}, {_c(self.min_f)} to {_c(self.max_f)}, Q {self.q:.4g}; Q {self.q_source}"
 
     def position_m(self, capacitance_f):
         """No position for a range tuner: NaN everywhere."""
@@ -382,7 +382,7 @@ class PlateTuner:
                 f"at ε_r {self.permittivity:.3g}, plates {self.plate_width_m * 1e3:.0f} × "
                 f"{self.plate_length_m * 1e3:.0f} mm, travel {self.travel_m * 1e3:.0f} mm, stray "
                 f"{_c(self.stray_f)}: {_c(self.min_f)} to {_c(self.max_f)} "
-                f"({self.capacitance_per_m * 1e-3 * 1e12:.3g} pF per mm), Q {self.q:.4g} ({self.q_source})")
+                f"({self.capacitance_per_m * 1e-3 * 1e12:.3g} pF per mm), Q {self.q:.4g}; Q {self.q_source}")
 
 
 def _c(value_f: float) -> str:
