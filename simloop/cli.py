@@ -89,6 +89,9 @@ def cmd_check(args) -> int:
     if spec.imperial:
         from simloop.units import format_length_imperial as inch
 
+        print(f"  frame {inch(spec.frame.width_m)} × {inch(spec.frame.height_m)}, "
+              f"pitch {inch(spec.winding.pitch_m)}")
+
         print(f"wire to cut: winding {inch(geom.winding_length_m)} + leads {inch(geom.lead_length_m)} "
               f"= {inch(geom.wire_length_m)}")
     else:

@@ -283,7 +283,7 @@ def plot_slide_scale(result, path: Path) -> Path:
             f"{r.name}: slide scale 1:1 (1 mm on paper = 1 mm of slide). Print at 100 % (no "
             f"fit-to-page) and check the ruler: 10 mm between numbered ticks. 0 = plates just not "
             f"overlapping; channel marks in kHz, one strip per tap.", fontsize=5, ha="left", va="top")
-    ax.text(0, height_in - 0.32, t.describe(), fontsize=4.5, ha="left", va="top")
+    ax.text(0, height_in - 0.32, t.describe(r.imperial), fontsize=4.5, ha="left", va="top")
     fig.savefig(path, dpi=300)
     plt.close(fig)
     return path

@@ -290,7 +290,7 @@ def format_tune_summary(r: TuneResult) -> str:
     f = r.frequencies_hz
     lines.append(f"{r.name}: {r.band.name} band, {f.size} channels {_span(f[0], f[-1])} every "
                  f"{r.band.spacing_hz / 1e3:g} kHz")
-    lines.append(f"tuner: {r.tuner.describe()}")
+    lines.append(f"tuner: {r.tuner.describe(r.imperial)}")
     for i, n in enumerate(r.tap_turns):
         used = int(np.sum(r.channel_tap_index == i))
         lo, hi = r.f_low_hz[i], r.f_high_hz[i]

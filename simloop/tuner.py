@@ -287,7 +287,8 @@ class RangeTuner:
     def has_position(self) -> bool:
         return False
 
-    def describe(self) -> str:
+    def describe(self, imperial: bool = False) -> str:
+        """One line for the user (``imperial`` is accepted for symmetry: no lengths here)."""
         what = ("default tuner (no [tuner] in the spec): a 12–365 pF single-gang air-variable, "
                 "common practice" if self.source == "default" else "variable capacitor")
         return f"{what}, {_c(self.min_f)} to {_c(self.max_f)}, Q {self.q:.4g}; Q {self.q_source}"
@@ -377,12 +378,22 @@ class PlateTuner:
         return float(self.gaps * EPSILON0_F_M * self.permittivity * self.plate_width_m
                      * self.max_overlap_m / extra)
 
-    def describe(self) -> str:
+    def describe(self, imperial: bool = False) -> str:
+        """One line for the user; lengths in inches (and mm) when ``imperial``."""
+        if imperial:
+            def ln(x):
+                return f"{x / 0.0254:.3g} in"
+            sizes = (f"plates {ln(self.plate_width_m)} × {ln(self.plate_length_m)}, travel "
+                     f"{ln(self.travel_m)} ({self.plate_width_m * 1e3:.0f} × {self.plate_length_m * 1e3:.0f} mm, "
+                     f"{self.travel_m * 1e3:.0f} mm)")
+            per = f"{self.capacitance_per_m * 0.0254 * 1e12:.3g} pF per inch"
+        else:
+            sizes = (f"plates {self.plate_width_m * 1e3:.0f} × {self.plate_length_m * 1e3:.0f} mm, "
+                     f"travel {self.travel_m * 1e3:.0f} mm")
+            per = f"{self.capacitance_per_m * 1e-3 * 1e12:.3g} pF per mm"
         return (f"sliding-plate capacitor, {self.gaps} gap(s) of {self.dielectric_thickness_m * 1e3:.3g} mm "
-                f"at ε_r {self.permittivity:.3g}, plates {self.plate_width_m * 1e3:.0f} × "
-                f"{self.plate_length_m * 1e3:.0f} mm, travel {self.travel_m * 1e3:.0f} mm, stray "
-                f"{_c(self.stray_f)}: {_c(self.min_f)} to {_c(self.max_f)} "
-                f"({self.capacitance_per_m * 1e-3 * 1e12:.3g} pF per mm), Q {self.q:.4g}; Q {self.q_source}")
+                f"at ε_r {self.permittivity:.3g}, {sizes}, stray {_c(self.stray_f)}: {_c(self.min_f)} to "
+                f"{_c(self.max_f)} ({per}), Q {self.q:.4g}; Q {self.q_source}")
 
 
 def _c(value_f: float) -> str:

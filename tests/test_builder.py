@@ -187,6 +187,14 @@ def test_lengths_print_in_inches_and_feet_with_metres():
         "26 1/2 in", "0.6 m").replace("1/4 in", "6 mm") + 'dielectric = "card"\n').imperial
 
 
+def test_plate_sizes_print_in_inches_for_an_inch_spec():
+    from simloop.tuner import tuner_from_spec
+
+    t = tuner_from_spec(loads(textwrap.dedent(PLATES) + 'dielectric = "card"\n').tuner)
+    assert "plates 4 in × 9 in, travel 9 in" in t.describe(imperial=True)
+    assert "plates 102 × 229 mm" in t.describe()
+
+
 def test_check_prints_wire_to_cut_in_feet_and_inches(tmp_path, capsys):
     path = tmp_path / "inch.toml"
     path.write_text(textwrap.dedent(PLATES) + 'dielectric = "card"\n')
