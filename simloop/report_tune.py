@@ -17,7 +17,6 @@ from simloop.impedance import RELIABLE_BELOW
 from simloop.report import _num, write_json
 from simloop.tuner import PlateTuner
 from simloop.tuning import RANGE_MARGIN, TuneResult
-from simloop.units import format_length
 
 __all__ = ["format_tune_summary", "tune_dict", "write_tune"]
 

@@ -14,7 +14,7 @@ from simloop.cli import build_parser, main
 from simloop.errors import SpecError
 from simloop.reference import SPEED_OF_LIGHT
 from simloop.spec import loads
-from simloop.tuner import DEFAULT_TUNER, RangeTuner, dielectric_by_name, plate_q
+from simloop.tuner import RangeTuner, dielectric_by_name, plate_q
 from simloop.tuning import RANGE_MARGIN, assign_taps, tuner_margins, tuning_capacitance
 from simloop.units import format_length_imperial, parse_option, parse_quantity
 
