@@ -31,7 +31,10 @@ def sweep(spec, **kwargs):
 def tune(spec, sweep_result, band="itu-1", field_v_per_m=1e-3):
     """Band coverage and channel chart from a sweep. See :func:`simloop.tuning.run_tune`."""
     from simloop.tuning import run_tune
+    from simloop.units import parse_band_raster
 
+    if isinstance(band, str) and ":" in band:  # "530k:1700k:10k" as on the command line
+        band = parse_band_raster(band)
     return run_tune(spec, sweep_result, band=band, field_v_per_m=field_v_per_m)
 
 

@@ -18,6 +18,14 @@ from simloop.errors import SimloopError, SpecError
 
 DEMO_SPEC = "demo-loop.toml"
 
+DESCRIPTION = ("Design a tuned receiving loop for the medium-wave band: from a spec file (frame, "
+               "turns, taps, wire, tuning capacitor) simloop computes each tap's impedance, which "
+               "channels the tuner reaches on which tap, the bandwidth and the signal, and how far "
+               "each number can be trusted.")
+EPILOG = ("Quantities take units: spec values such as \"31.5 in\" or \"26 1/2 in\", options such as "
+          "--field 1mV/m and --z0 50ohm. Exit status: 0 done, 2 bad input (the message names the "
+          "key), 1 anything else. See README.md.")
+
 
 class _Progress:
     """tqdm on a terminal; on a log, one line per finished solve at most every 10 s."""
@@ -68,7 +76,7 @@ def _out_dir(args, spec) -> Path:
 
 def cmd_check(args) -> int:
     from simloop.impedance import prepare
-    from simloop.mesh import C0
+    from simloop.mesh import C0, segment_rule
     from simloop.spec import load
 
     spec = load(args.spec)
@@ -78,14 +86,26 @@ def cmd_check(args) -> int:
           f"{spec.frame.width_m * 1e3:.0f} × {spec.frame.height_m * 1e3:.0f} mm, "
           f"pitch {spec.winding.pitch_m * 1e3:.2f} mm, wire radius {spec.wire.radius_m * 1e3:.3f} mm, "
           f"taps at {', '.join(map(str, spec.taps.turns))} turns")
-    print(f"wire to cut: winding {geom.winding_length_m:.3f} m + leads {geom.lead_length_m:.3f} m "
-          f"= {geom.wire_length_m:.3f} m")
+    if spec.imperial:
+        from simloop.units import format_length_imperial as inch
+
+        print(f"  frame {inch(spec.frame.width_m)} × {inch(spec.frame.height_m)}, "
+              f"pitch {inch(spec.winding.pitch_m)}")
+
+        print(f"wire to cut: winding {inch(geom.winding_length_m)} + leads {inch(geom.lead_length_m)} "
+              f"= {inch(geom.wire_length_m)}")
+    else:
+        print(f"wire to cut: winding {geom.winding_length_m:.3f} m + leads {geom.lead_length_m:.3f} m "
+              f"= {geom.wire_length_m:.3f} m")
+    seg_rule = segment_rule(geom, mesh.quality, spec.sweep.stop_hz, spec.winding.turns)
     print(f"mesh ({mesh.quality}): {mesh.n_segments} segments on {mesh.segments.size} wires; "
           f"segment {mesh.shortest_m * 1e3:.2f}–{mesh.longest_m * 1e3:.2f} mm "
           f"(target {mesh.target_m * 1e3:.2f} mm)")
-    print(f"  = {mesh.shortest_m / lam_lo:.2e}–{mesh.longest_m / lam_hi:.2e} λ over the sweep, "
-          f"{mesh.winding_segment_m / spec.winding.pitch_m:.2f} × pitch, "
+    pitch = (f"{mesh.winding_segment_m / spec.winding.pitch_m:.2f} × pitch, " if spec.winding.turns > 1
+             else "")
+    print(f"  = {mesh.shortest_m / lam_lo:.2e}–{mesh.longest_m / lam_hi:.2e} λ over the sweep, {pitch}"
           f"{mesh.shortest_m / spec.wire.radius_m:.1f}–{mesh.longest_m / spec.wire.radius_m:.1f} × radius")
+    print(f"  segment length set by: {seg_rule}")
     width = max(len(r.name) for r in rules)
     for r in rules:
         print(f"  [{r.status:>4}] {r.name:<{width}}  {r.detail}")
@@ -134,12 +154,23 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
     return 0
 
 
+def _tune_options(args):
+    """--band and --field as the computation takes them (a band plan, V/m), checked before any solve."""
+    from simloop.tuning import band_plan
+    from simloop.units import parse_band_raster, parse_option
+
+    text = str(args.band)
+    band = band_plan(parse_band_raster(text) if ":" in text else text)
+    return band, parse_option(args.field, "field", "--field")
+
+
 def cmd_tune(args, spec=None, sweep=None) -> int:
     from simloop.report_tune import format_tune_summary, write_tune
     from simloop.tuning import run_tune
 
+    band, field = _tune_options(args)
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
-    result = run_tune(spec, sweep, band=args.band, field_v_per_m=args.field)
+    result = run_tune(spec, sweep, band=band, field_v_per_m=field)
     paths = write_tune(result, out)
     if not args.quiet:
         print(format_tune_summary(result))
@@ -215,7 +246,7 @@ def cmd_demo(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="simloop", description=__doc__.splitlines()[0])
+    parser = argparse.ArgumentParser(prog="simloop", description=DESCRIPTION, epilog=EPILOG)
     parser.add_argument("--debug", action="store_true", help="show tracebacks")
     sub = parser.add_subparsers(dest="command", required=True)
     # --debug is accepted after the command too; SUPPRESS keeps a global --debug from being reset
@@ -227,7 +258,9 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("spec", help="spec file (TOML)")
         p.add_argument("--out", help="output folder (default results/<name>/)")
         p.add_argument("--workers", type=int, default=None, help="solver processes (default: all CPUs)")
-        p.add_argument("--z0", type=float, default=50.0, help="Touchstone reference impedance [Ω]")
+        p.add_argument("--z0", default="50 ohm",
+                       help="Touchstone reference impedance, e.g. 50ohm or 75Ω (a bare number is ohms; "
+                            "default 50 ohm)")
         p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
         p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -243,8 +276,9 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--band", default="itu-1",
                    help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
-    p.add_argument("--field", type=float, default=1e-3,
-                   help="incident field strength for the tuner voltage [V/m] (default 1 mV/m)")
+    p.add_argument("--field", default="1 mV/m",
+                   help="incident field strength for the tuner voltage, with its unit: 1mV/m, "
+                        "50uV/m, 0.01V/m (a bare number is V/m; default 1 mV/m)")
     p.set_defaults(func=cmd_tune)
     p = sub.add_parser("validate", parents=[debug], help="MoM against handbook formulas and the quasi-static model")
     common(p)
@@ -275,8 +309,10 @@ def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
-        if getattr(args, "z0", 50.0) <= 0:
-            raise SpecError("--z0", f"{args.z0} must be > 0 (reference impedance in ohms)")
+        if hasattr(args, "z0"):
+            from simloop.units import parse_option
+
+            args.z0 = parse_option(args.z0, "resistance", "--z0")
         if getattr(args, "workers", None) is not None and args.workers < 1:
             raise SpecError("--workers", f"{args.workers} must be ≥ 1")
         return args.func(args)

@@ -49,6 +49,10 @@ RELIABLE_BELOW = 0.05
 #: predicted 0.7–1 MHz within 0.3 %; fits near the SRF were 0.7–2 % off).
 WINDOW_TOP = 0.6
 WINDOW_POINTS = 5
+#: Largest turn perimeter, in wavelengths, at which the model is fitted: the fitted radiation term
+#: is the small-loop law R_r ∝ f⁴, which holds for a perimeter below about λ/10 (Balanis, *Antenna
+#: Theory*, 3rd ed., 2005, sec. 5.2); at 0.2 λ the MoM radiation resistance is ~29 % above it.
+SMALL_LOOP_PERIMETER = 0.1
 #: Port matrices less reciprocal than this make every point of the sweep unreliable.
 ASYMMETRY_LIMIT = 0.15
 
@@ -277,6 +281,12 @@ def junction_correction(spec, geom: LoopGeometry, mesh: Mesh, env: Environment, 
     return kappa
 
 
+def _turn_perimeter_m(geom: LoopGeometry) -> float:
+    """Wire length of the first (outer) turn. [m]"""
+    kinds = np.array(geom.kinds)
+    return float(geom.lengths_m[(kinds == "winding") & (geom.turn == 0)].sum())
+
+
 def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = None,
               progress=None, direct: bool = False, correct_junctions: bool = True) -> SweepResult:
     """Sweep the impedance of every tap of a loop spec.
@@ -344,8 +354,11 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     srf = _lowest_resonance(model, 40 * f7)
 
     # 2. The fit window, moved once more if the fitted resonance lands below the first guess.
+    # The fitted radiation term is the small-loop law (∝ f⁴), which holds only while a turn is
+    # electrically small: the window stays below perimeter ≤ SMALL_LOOP_PERIMETER λ (Balanis).
+    f_small = SMALL_LOOP_PERIMETER * C0 / _turn_perimeter_m(geom)
     for _ in range(3):
-        f_hi = WINDOW_TOP * srf if srf is not None else 1.6 * f7
+        f_hi = min(WINDOW_TOP * srf if srf is not None else 1.6 * f7, f_small)
         f_lo = f7
         if f_lo > f_hi / 1.3:
             f_lo = max(f5, f_hi / 1.3)

@@ -128,6 +128,24 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     return min(delta, 0.05 * C0 / stop_hz)
 
 
+def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -> str:
+    """Which rule of :func:`target_segment_m` sets the segment length (for the mesh report).
+
+    A single turn has no neighbouring turn, so the pitch rule does not apply to it.
+    """
+    pitch_factor, per_turn = QUALITY[quality]
+    kinds = np.array(geom.kinds)
+    perimeter = float(geom.lengths_m[(kinds == WINDING) & (geom.turn == 0)].sum())
+    per_drop = 2.0 if quality == "draft" else 3.0
+    options = {f"{per_turn} segments per turn (perimeter / {per_turn})": perimeter / per_turn,
+               f"the shallowest lead drop in {per_drop:g} segments": float(geom.lengths_m[kinds == DROP].min()) / per_drop,
+               "0.05 λ at the top frequency": 0.05 * C0 / stop_hz}
+    if turns > 1:
+        options[f"{pitch_factor:g} × pitch (neighbouring turns)"] = pitch_factor * geom.pitch_m
+    rule = min(options, key=options.get)
+    return rule + ("" if turns > 1 else "; a single turn has no neighbouring turn, so no pitch rule")
+
+
 def build_mesh(geom: LoopGeometry, target_m: float, quality: str = "standard",
                port_length_m: float | None = None) -> Mesh:
     """Cut every piece into segments as close to ``target_m`` as whole numbers allow.

@@ -36,8 +36,12 @@ Keys and defaults (sections other than frame, winding, wire and taps are optiona
                OR permittivity [-] and conductivity [S/m]  (real only)
     [tuner]    kind = "range": min, max [capacitance], q (default 1000)
                kind = "plates": plate_width, plate_length, dielectric_thickness [length],
-                       permittivity [-], travel [length], gaps (default 2),
-                       stray [capacitance] (default "10 pF"), q (default 1000)
+                       travel [length], gaps (default 2), stray [capacitance] (default "10 pF"),
+                       dielectric = "air" | "ptfe" | "polypropylene" | "polyethylene" |
+                       "polystyrene" | "polyester" | "kraft-paper" | "card" | "glass",
+                       permittivity [-] (default: the dielectric's typical value; one of the
+                       two is required), q (default: from the dielectric, 1/tan δ, see
+                       simloop.tuner.plate_q)
     [receiver] rod_length, rod_diameter [length], permeability [-], coil_turns (int),
                coil_length [length], loaded_q [-], position = [x, y, z] [length],
                axis = [ax, ay, az] (default [0, 1, 0], normalised), coil_inductance [inductance]
@@ -62,10 +66,12 @@ from pydantic_core import PydanticCustomError
 
 from simloop.constants import F_MAX_HZ as _F_MAX_HZ, F_MIN_HZ as _F_MIN_HZ  # docs/references.md §13
 from simloop.errors import SpecError
+from simloop.tuner import DIELECTRICS, dielectric_by_name, plate_q
 from simloop.units import (
     as_written,
     awg_diameter_m,
     format_quantity,
+    is_imperial,
     parse_gauge,
     parse_quantity,
 )
@@ -117,6 +123,7 @@ SOIL_CLASSES: Final[dict[str, tuple[float, float]]] = {
 _MAX_POINTS: Final = 2001
 _MAX_TAPS: Final = 8
 _LEAD_OFFSET_DIAMETERS: Final = 4.0  # leads at least 4 wire diameters from the winding
+_LEAD_CLEARANCE_DIAMETERS: Final = 3.0  # leads keep 3 wire diameters from unjoined wire
 _GROUND_CLEARANCE_M: Final = 0.01  # the lowest lead must stay 1 cm above ground
 
 # Tuner defaults. Common practice for a home-built sliding-plate capacitor: one moving plate
@@ -238,6 +245,8 @@ class TunerSpec:
     permittivity: float | None = None
     travel_m: float | None = None
     stray_f: float | None = None
+    dielectric: str | None = None
+    q_source: str = "given in the spec (tuner.q)"
 
 
 @dataclass(frozen=True)
@@ -290,9 +299,14 @@ class Spec:
     path: Path | None
     #: Free text from the spec's ``notes`` key, shown (escaped) in the study report.
     notes: str = ""
-    #: "imperial" when the frame, pitch and lead lengths were mostly written in inches or feet,
-    #: so that reports give the cut list in the builder's own units; "metric" otherwise.
-    length_system: Literal["metric", "imperial"] = "metric"
+    #: The frame or winding was written in inches or feet: lengths are printed in inches and feet
+    #: as well as metres.
+    imperial: bool = False
+
+    @property
+    def length_system(self) -> Literal["metric", "imperial"]:
+        """The builder's unit system for reports: "imperial" when :attr:`imperial`."""
+        return "imperial" if self.imperial else "metric"
 
 
 # --- Stage 1: structure (pydantic models of what the user wrote) ---------------------------------
@@ -458,6 +472,7 @@ class _TunerIn(_Table):
     permittivity: _Positive | None = None
     travel: _Length | None = None
     stray: _Stray | None = None
+    dielectric: Annotated[str, _choice(*(d.key for d in DIELECTRICS))] | None = None
 
 
 class _ReceiverIn(_Table):
@@ -666,8 +681,8 @@ def _resolve_ground(g: _GroundIn | None, problems: list[tuple[str, str]]) -> Gro
 _TUNER_KEYS: Final[dict[str, tuple[set[str], set[str]]]] = {
     # kind: (required keys, optional keys)
     "range": ({"min", "max"}, {"q"}),
-    "plates": ({"plate_width", "plate_length", "dielectric_thickness", "permittivity", "travel"},
-               {"gaps", "stray", "q"}),
+    "plates": ({"plate_width", "plate_length", "dielectric_thickness", "travel"},
+               {"gaps", "stray", "q", "permittivity", "dielectric"}),
 }
 
 
@@ -688,16 +703,26 @@ def _resolve_tuner(t: _TunerIn | None, problems: list[tuple[str, str]]) -> Tuner
     if len(problems) > n_before:
         return None
     q = t.q.value if t.q is not None else _TUNER_Q
+    q_source = "given in the spec (tuner.q)" if t.q is not None else "assumed for an air-variable"
     if t.kind == "range":
         assert t.min is not None and t.max is not None
-        return TunerSpec(kind="range", min_f=t.min.value, max_f=t.max.value, q=q)
-    assert t.plate_width and t.plate_length and t.dielectric_thickness and t.permittivity
+        return TunerSpec(kind="range", min_f=t.min.value, max_f=t.max.value, q=q, q_source=q_source)
+    if t.permittivity is None and t.dielectric is None:
+        problems.append(("tuner.permittivity", 'missing: tuner.kind = "plates" needs it, or name '
+                                               'tuner.dielectric (e.g. "polypropylene")'))
+        return None
+    assert t.plate_width and t.plate_length and t.dielectric_thickness
     assert t.travel is not None
+    permittivity = (t.permittivity.value if t.permittivity is not None
+                    else dielectric_by_name(t.dielectric).typical_permittivity)
+    if t.q is None:  # the plate capacitor's Q comes from its dielectric (simloop.tuner.plate_q)
+        q, q_source = plate_q(permittivity, t.dielectric)
     return TunerSpec(
-        kind="plates", q=q, plate_width_m=t.plate_width.value,
+        kind="plates", q=q, q_source=q_source, dielectric=t.dielectric,
+        plate_width_m=t.plate_width.value,
         plate_length_m=t.plate_length.value,
         gaps=t.gaps if t.gaps is not None else _TUNER_GAPS,
-        dielectric_thickness_m=t.dielectric_thickness.value, permittivity=t.permittivity.value,
+        dielectric_thickness_m=t.dielectric_thickness.value, permittivity=permittivity,
         travel_m=t.travel.value, stray_f=t.stray.value if t.stray is not None else _TUNER_STRAY_F)
 
 
@@ -735,6 +760,16 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     if not win.pitch.value > d:
         p.append(("winding.pitch", f"{win.pitch.text} must exceed {wire_text}; the turns would "
                                    f"touch"))
+    elif win.pitch.value < _LEAD_CLEARANCE_DIAMETERS * d:
+        # Every tap lead leaves the winding between two turns and passes the neighbouring turn at
+        # one pitch; a lead must keep three wire diameters from any wire it is not joined to
+        # (simloop.geometry.check_clearances), so the pitch must be at least that.
+        p.append(("winding.pitch", f"{win.pitch.text} is less than {_LEAD_CLEARANCE_DIAMETERS:g} × "
+                                   f"{wire_text} = {_mm(_LEAD_CLEARANCE_DIAMETERS * d)}: the tap leads "
+                                   f"leave the winding between neighbouring turns, one pitch from "
+                                   f"them, and a lead must keep {_LEAD_CLEARANCE_DIAMETERS:g} wire "
+                                   f"diameters from wire it is not joined to; wind at a pitch of at "
+                                   f"least {_mm(_LEAD_CLEARANCE_DIAMETERS * d)} or use thinner wire"))
     if win.style == "spiral" and win.turns >= 1:
         pitch = win.pitch.value
         for side, dim in (("width", m.frame.width), ("height", m.frame.height)):
@@ -888,19 +923,8 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
         pattern=pattern,
         path=path,
         notes=m.notes or "",
-        length_system=_length_system(m),
+        imperial=any(is_imperial(v.text) for v in (m.frame.width, m.frame.height, m.winding.pitch)),
     )
-
-
-_IMPERIAL_RE: Final = re.compile(r"\d\s*(in|ft)\s*\"?$")
-
-
-def _length_system(m: _SpecIn) -> Literal["metric", "imperial"]:
-    """Imperial when most of the frame, pitch and lead lengths the user wrote are in inches or feet."""
-    texts = [m.frame.width.text, m.frame.height.text, m.winding.pitch.text, m.leads.offset.text]
-    written = [t for t in texts if not t.startswith("the default")]
-    imperial = sum(_IMPERIAL_RE.search(t) is not None for t in written)
-    return "imperial" if 2 * imperial > len(written) else "metric"
 
 
 def _toml_error(err: tomllib.TOMLDecodeError, text: str, source: str) -> SpecError:

@@ -258,7 +258,10 @@ def test_plates_tuner_defaults():
                        "tuner.permittivity": "2.2", "tuner.travel": '"15 cm"'}))
     t = spec.tuner
     assert t is not None and t.kind == "plates"
-    assert (t.gaps, t.stray_f, t.q) == (2, 10e-12, 1000.0)
+    # Without tuner.q the Q comes from the dielectric: ε_r 2.2 matches PTFE, polypropylene and
+    # kraft paper; the lossiest, paper (tan δ 0.01, approximate), gives Q = 1/tan δ = 100.
+    assert (t.gaps, t.stray_f) == (2, 10e-12)
+    assert t.q == pytest.approx(100.0, rel=1e-12, abs=0) and "kraft paper" in t.q_source
     assert t.plate_width_m == pytest.approx(0.1) and t.plate_length_m == pytest.approx(0.2)
     assert t.dielectric_thickness_m == pytest.approx(1e-4) and t.travel_m == pytest.approx(0.15)
     assert t.permittivity == 2.2
@@ -309,7 +312,8 @@ def test_custom_conductivity_and_diameter():
 
 
 def test_aught_gauge():
-    wire = loads(make({"wire.gauge": '"4/0 AWG"', "winding.pitch": '"15 mm"',
+    # pitch ≥ 3 wire diameters (35.05 mm) so the tap leads clear the neighbouring turn
+    wire = loads(make({"wire.gauge": '"4/0 AWG"', "winding.pitch": '"36 mm"',
                        "leads.offset": '"5 cm"'})).wire
     assert wire.gauge_awg == -3
     assert wire.diameter_m == pytest.approx(awg_diameter_m(-3)) == pytest.approx(11.684e-3)

@@ -29,6 +29,9 @@ EVERY_UNIT = [
     ("6 mm", "length", 6e-3),
     ("31.5 in", "length", 0.8001),  # 1 in = 25.4 mm exactly
     ("2 ft", "length", 0.6096),  # 1 ft = 304.8 mm exactly
+    ("26 1/2 in", "length", 0.6731),  # a simple fraction: 26.5 × 25.4 mm
+    ("1 mV/m", "field", 1e-3),
+    ("50 uV/m", "field", 50e-6),
     ("530 Hz", "frequency", 530.0),
     ("530 kHz", "frequency", 530e3),
     ("1.2 MHz", "frequency", 1.2e6),
