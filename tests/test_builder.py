@@ -1,5 +1,12 @@
 """The builder's view (issue 10): tap chart spans, the plate capacitor's Q from its dielectric,
-inches, option units, plots, words, close-wound errors, the radiation fit window, power balance."""
+inches, option units, plots, words, close-wound errors, the radiation fit window, power balance.
+
+Sources: Balanis, *Antenna Theory* (ch. 5) for the small-loop radiation resistance; Terman 1943
+(sec. 2, 3) for tuned-circuit Q and the plate capacitor; ASTM B258 for wire gauges; the
+international inch (25.4 mm, 1959); the dielectric loss tangents of docs/references.md §16 (from
+memory, marked there); tap-switching practice "most turns for the lowest frequencies" (common
+practice).
+"""
 
 from __future__ import annotations
 
@@ -17,6 +24,7 @@ from simloop.spec import loads
 from simloop.tuner import RangeTuner, dielectric_by_name, plate_q
 from simloop.tuning import RANGE_MARGIN, assign_taps, tuner_margins, tuning_capacitance
 from simloop.units import format_length_imperial, parse_option, parse_quantity
+from tests.conftest import USER_OUTPUT_FORBIDDEN
 
 # --- 1. The tap chart: one contiguous span per tap, most turns at the bottom --------------------
 
@@ -237,7 +245,7 @@ def test_bad_option_is_refused_before_any_solve(tmp_path, capsys):
 
 # --- 6. Words ------------------------------------------------------------------------------------
 
-FORBIDDEN = ("REFERENCES", "DESIGN", "[mem]", "from memory", "couple")
+FORBIDDEN = USER_OUTPUT_FORBIDDEN
 
 
 def test_help_opens_with_a_description_for_users():

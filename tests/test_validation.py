@@ -22,6 +22,7 @@ from simloop.errors import SpecError
 from simloop.impedance import run_sweep
 from simloop.solve import Environment, solve_ports
 from simloop.spec import loads
+from tests.conftest import USER_OUTPUT_FORBIDDEN
 from simloop.validation import (
     AGT_ACCEPT,
     BELOW_RESOLUTION,
@@ -346,7 +347,7 @@ def test_cli_validate_writes_every_row(tmp_path, capsys):
     # The far-field check in our own words: a power balance, radiated against accepted power.
     assert "power balance" in printed and "average gain" not in printed
     assert re.search(r"tap 4: radiated \S+ W of \S+ W accepted, [+-]\d+\.\d%", printed)
-    for word in ("couple", "REFERENCES", "DESIGN", "[mem]", "from memory"):
+    for word in USER_OUTPUT_FORBIDDEN:
         assert word not in printed, word
     data = json.loads((out / "validation.json").read_text())
     for key in ("checks", "convergence", "verdict", "average_gain", "q_used_by_tune", "meshes"):
