@@ -72,7 +72,7 @@ def _cache(args):
         raise SpecError(key, f"{str(root)!r} is a file, not a folder; point SIMLOOP_CACHE at a folder "
                              f"or pass --no-cache")
     cache = SolveCache(root)
-    args.cache_root = root if cache.writable else None
+    args.cache_in_use = cache
     return cache
 
 
@@ -90,12 +90,13 @@ def _solve_failures(args, sweep) -> int:
           f"backed are marked unreliable (error estimate 1) and listed under 'failures' in sweep.json:",
           file=sys.stderr)
     for f in sweep.failures:
-        print(f"  {f.frequency_hz / 1e6:.6f} MHz ({f.role}): {f.reason}", file=sys.stderr)
+        print(f"  {f.role} solve at {f.reason}", file=sys.stderr)
     if getattr(args, "keep_going", False):
         print("simloop: --keep-going: finished with the failures recorded", file=sys.stderr)
         return 0
-    print("simloop: rerun to retry them (finished solves are cached), or pass --keep-going to accept",
-          file=sys.stderr)
+    cache = getattr(args, "cache_in_use", None)
+    kept = " (the solves that finished are cached)" if cache is not None and cache.writable else ""
+    print(f"simloop: rerun to retry them{kept}, or pass --keep-going to accept", file=sys.stderr)
     return 1
 
 
@@ -317,8 +318,9 @@ def _check_options(args) -> None:
 
 
 def _interrupted(args) -> str:
-    root = getattr(args, "cache_root", None)
-    kept = f"every finished solve is kept in the cache ({root})" if root else "no cache in use: nothing kept"
+    cache = getattr(args, "cache_in_use", None)
+    kept = (f"every finished solve is kept in the cache ({cache.root})" if cache is not None and cache.writable
+            else "no usable cache: the solves of this run are lost")
     return f"simloop: interrupted; {kept}"
 
 

@@ -55,9 +55,16 @@ def write_json(path: Path, data: dict) -> Path:
     return _write_atomic(Path(path), (json.dumps(_finite(data), indent=1, allow_nan=False) + "\n").encode())
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 def _write_atomic(path: Path, blob: bytes) -> Path:
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}-", suffix=".tmp")
     try:
+        os.fchmod(fd, 0o666 & ~_umask())  # as an ordinary file would be (mkstemp makes it private)
         with os.fdopen(fd, "wb") as fh:
             fh.write(blob)
             fh.flush()
