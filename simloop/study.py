@@ -58,11 +58,11 @@ class SharedSolves(SolveCache):
         self.stage = ""
         self.log: list[SolveLogEntry] = []
 
-    def get(self, key: str) -> dict | None:
+    def get(self, key: str, expect=None) -> dict | None:
         if key in self.memory:
             self.log.append(SolveLogEntry(self.stage, key, "memory"))
             return self.memory[key]
-        hit = self.disk.get(key) if self.disk is not None else None
+        hit = self.disk.get(key, expect) if self.disk is not None else None
         if hit is not None:
             self.memory[key] = hit
             self.log.append(SolveLogEntry(self.stage, key, "disk"))

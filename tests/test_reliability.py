@@ -3,6 +3,10 @@
 Every check here is of the tool's own promises (README, "Using it": exit statuses; an interrupted
 or failed run loses nothing; nothing unreliable is reported as reliable), not of physics, so the
 expected values are the promised behaviour itself.
+
+Sources: the shell convention of exit status 128 + signal number for a process ended by a signal
+(POSIX.1-2017, Shell Command Language sec. 2.8.2: 130 SIGINT, 141 SIGPIPE, 143 SIGTERM), common
+practice for the rest (atomic rename for consistent outputs, POSIX rename(2)).
 """
 
 from __future__ import annotations
