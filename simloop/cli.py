@@ -165,6 +165,26 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
     return 0
 
 
+def cmd_couple(args, spec=None, sweep=None) -> int:
+    from simloop.coupling import run_couple
+    from simloop.report_couple import format_couple_summary, write_couple
+    from simloop.tuning import run_tune
+
+    from simloop.units import parse_quantity
+
+    frequency = getattr(args, "frequency", None)
+    frequency = parse_quantity(frequency, "frequency", "--frequency", sign="positive") if frequency else None
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    tune = run_tune(spec, sweep)
+    result = run_couple(spec, sweep, tune, frequency_hz=frequency,
+                        tap_turns=getattr(args, "tap", None))
+    paths = write_couple(result, out, z0=args.z0)
+    if not args.quiet:
+        print(format_couple_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
 def cmd_demo(args) -> int:
     """Sweep, tune and validate the bundled demo loop: every output into one folder."""
     from simloop.spec import loads
@@ -215,6 +235,14 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
+    p = sub.add_parser("couple", parents=[debug], help="loop-to-radio coupling: boost, placement map, 2-port")
+    common(p)
+    p.add_argument("--tap", type=int, default=None, help="tap (in turns) for the single-frequency studies")
+    p.add_argument("--frequency", default=None,
+                   help='frequency of the capacitor, distance and placement studies, e.g. "1 MHz" '
+                        "(default: the channel nearest 1 MHz)")
+    p.set_defaults(func=cmd_couple)
+
     p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)

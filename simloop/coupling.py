@@ -262,6 +262,7 @@ class CoupleResult:
     critical_k: float
     available_power_ratio: float
     currents_origin: str
+    footprint_m: tuple[tuple[float, float], tuple[float, float]]
     notes: tuple[str, ...] = field(default=())
 
 
@@ -306,6 +307,13 @@ class _Context:
     def bottom_z(self) -> float:
         kinds = np.array(self.geom.kinds)
         return float(self.geom.starts[kinds == "winding", 2].min())
+
+    def footprint(self):
+        """(x_min, x_max), (y_min, y_max) of the winding. [m]"""
+        w = np.array(self.geom.kinds) == "winding"
+        pts = np.vstack([self.geom.starts[w], self.geom.ends[w]])
+        return ((float(pts[:, 0].min()), float(pts[:, 0].max())),
+                (float(pts[:, 1].min()), float(pts[:, 1].max())))
 
     def z11(self, f, tap):
         return self.sweep.model_z(np.atleast_1d(f))[:, tap, tap]
@@ -539,4 +547,5 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
         best_orientation_deg=MAP_ORIENTATIONS_DEG[o], best_boost_db=float(map_db[o, iy, ix]),
         s_frequencies_hz=np.asarray(sweep.frequencies_hz, dtype=float),
         s_z_ohm=two_port_z(ctx, t, sweep.frequencies_hz), critical_k=float(kc),
-        available_power_ratio=rho2, currents_origin=ctx.source.origin, notes=tuple(notes))
+        available_power_ratio=rho2, currents_origin=ctx.source.origin,
+        footprint_m=ctx.footprint(), notes=tuple(notes))
