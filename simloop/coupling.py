@@ -248,6 +248,7 @@ class CoupleResult:
     distance_boost_db: np.ndarray
     optimum_spacing_m: float
     optimum_spacing_boost_db: float
+    optimum_at_near_limit: bool
     map_x_m: np.ndarray
     map_y_m: np.ndarray
     map_z_m: float
@@ -422,10 +423,10 @@ def _placement_map(ctx: _Context, f, tap, points=41):
 
 
 def _default_frequency(tune) -> tuple[float, int]:
-    """The channel nearest 1 MHz that a tap reaches."""
+    """The channel nearest 1 MHz that a tap reaches; (1 MHz, −1) when no tap reaches any."""
     ok = np.flatnonzero(np.asarray(tune.channel_tap_index) >= 0)
     if ok.size == 0:
-        raise SpecError("--frequency", "no tap reaches any channel of the band; nothing to couple")
+        return 1e6, -1
     j = ok[np.argmin(np.abs(np.asarray(tune.frequencies_hz)[ok] - 1e6))]
     return float(tune.frequencies_hz[j]), int(tune.channel_tap_index[j])
 
@@ -526,9 +527,15 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
     j = int(np.nanargmax(dist_db))
     rho2, kc = _available_ratio(ctx, f, t)
     notes = []
+    if not np.any(np.asarray(tune.channel_tap_index) >= 0):
+        notes.append("no tap reaches any channel with this tuner: the studies at one frequency "
+                     "assume the loop tuned there anyway")
     if ctx.assumed:
         notes.append("no [receiver] in the spec: a typical radio's rod is assumed "
                      "(10 × 100 mm, μi 125, 65 turns, loaded Q 60)")
+    if np.isfinite(dist_db).any() and j == int(np.flatnonzero(np.isfinite(dist_db))[0]):
+        notes.append("the boost still rises at the closest spacing the model allows (under-coupled "
+                     "there): the true optimum is closer; try it by ear")
     if ctx.rod.inductance_source == "computed":
         notes.append(f"rod-coil inductance computed from the rod model (expected error "
                      f"±{ctx.rod.inductance_error:.0%}); measure it and give receiver.coil_inductance")
@@ -541,7 +548,8 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
         tap_index=t, loop_capacitance_f=c0, capacitor_f=caps, capacitor_boost_db=cap_db,
         capacitor_width_f=width, capacitor_width_m=travel, distance_m=dist,
         distance_boost_db=dist_db, optimum_spacing_m=float(dist[j]),
-        optimum_spacing_boost_db=float(dist_db[j]), map_x_m=mx, map_y_m=my, map_z_m=mz,
+        optimum_spacing_boost_db=float(dist_db[j]),
+        optimum_at_near_limit=bool(j == int(np.flatnonzero(np.isfinite(dist_db))[0])), map_x_m=mx, map_y_m=my, map_z_m=mz,
         map_boost_db=map_db, map_k=map_k, best_position_m=np.array([mx[ix], my[iy], mz]),
         best_axis=np.array([np.sin(th), np.cos(th), 0.0]),
         best_orientation_deg=MAP_ORIENTATIONS_DEG[o], best_boost_db=float(map_db[o, iy, ix]),

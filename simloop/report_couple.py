@@ -71,6 +71,7 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
             "distance_m": r.distance_m.tolist(), "distance_boost_db": r.distance_boost_db.tolist(),
         },
         "optimum_spacing": {"distance_m": r.optimum_spacing_m, "boost_db": r.optimum_spacing_boost_db,
+                            "at_near_limit": r.optimum_at_near_limit,
                             "line": "along the loop axis through the receiver's position; "
                                     "distance is the rod centre's coordinate on that axis"},
         "best_position": {"position_m": r.best_position_m.tolist(), "axis": r.best_axis.tolist(),
