@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from simloop.errors import SpecError
-from simloop.fields import CurrentSource, h_field, quasi_static_source
+from simloop.fields import CurrentSource, h_axial, quasi_static_source
 from simloop.geometry import segment_distance_m
 from simloop.receiver import ETA0, MU0, RodModel, plane_wave_h, rod_from_spec, rod_open_circuit_voltage
 
@@ -82,10 +82,9 @@ def mutual_inductance_h(source: CurrentSource, rod: RodModel, positions_m, axes)
     """
     pts = rod_sample_points(rod, positions_m, axes)
     p, s = pts.shape[:2]
-    h = h_field(source, pts.reshape(-1, 3)).reshape(-1, p, s, 3)
-    ax = _unit(axes).reshape(-1, 3)
-    h_axial = np.einsum("kpsi,pi->kps", h, np.broadcast_to(ax, (p, 3)))
-    m = MU0 * rod.turns * rod.area_m2 * (h_axial @ rod.weights)
+    ax = np.broadcast_to(_unit(axes).reshape(-1, 1, 3), (p, s, 3)).reshape(-1, 3)
+    h_ax = h_axial(source, pts.reshape(-1, 3), ax).reshape(-1, p, s)
+    m = MU0 * rod.turns * rod.area_m2 * (h_ax @ rod.weights)
     return m.real if np.all(np.abs(m.imag) <= 1e-9 * np.abs(m).max(initial=0)) else m
 
 

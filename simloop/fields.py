@@ -52,24 +52,26 @@ class CurrentSource:
         return 0.5 * np.real(self.currents) @ cross
 
 
-def segment_kernel(starts_m, ends_m, points_m) -> np.ndarray:
-    """H at each point from 1 A on each segment, shape (p, n, 3). [A/m per A]"""
-    p = np.asarray(points_m, dtype=float)[:, None, :]
-    r1 = p - np.asarray(starts_m, dtype=float)[None]
-    r2 = p - np.asarray(ends_m, dtype=float)[None]
-    n1 = np.linalg.norm(r1, axis=-1)
-    n2 = np.linalg.norm(r2, axis=-1)
-    den = n1 * n2 * (n1 * n2 + np.einsum("psi,psi->ps", r1, r2))
-    cross = np.cross(r1, r2)
-    scale = np.zeros_like(den)
+def _scale(points, starts, ends):
+    """(n1 + n2)/(4π n1 n2 (n1 n2 + r1·r2)) for every point and segment, (p, n), from dot products
+    (matrix products: r1·r2 = |p|² − p·(a + b) + a·b, |r1|² = |p|² − 2p·a + |a|²), 0 on a segment."""
+    pp = np.einsum("pi,pi->p", points, points)[:, None]
+    pa = points @ starts.T
+    pb = points @ ends.T
+    n1 = np.sqrt(np.maximum(pp - 2 * pa + np.einsum("si,si->s", starts, starts), 0.0))
+    n2 = np.sqrt(np.maximum(pp - 2 * pb + np.einsum("si,si->s", ends, ends), 0.0))
+    dot = pp - pa - pb + np.einsum("si,si->s", starts, ends)
     nn = n1 * n2
+    den = nn * (nn + dot)
     ok = (nn > 0) & (den > 1e-12 * nn * nn)
-    scale[ok] = (n1 + n2)[ok] / den[ok] / (4 * np.pi)
-    return cross * scale[..., None]
+    return np.where(ok, (n1 + n2) / np.where(ok, den, 1.0), 0.0) / (4 * np.pi)
 
 
 def h_field(source: CurrentSource, points_m) -> np.ndarray:
     """H of every tap's currents at the points, shape (k, p, 3), complex. [A/m per A at the port]
+
+    With **d** = **a** − **b** and **c** = **a** × **b**, **r1** × **r2** = **p** × **d** + **c**, so
+    for weights W = I·scale (p, n): **H** = **p** × (W **d**) + W **c** — two matrix products per tap.
 
     Parameters
     ----------
@@ -77,11 +79,34 @@ def h_field(source: CurrentSource, points_m) -> np.ndarray:
     points_m : array_like, (p, 3)
     """
     pts = np.asarray(points_m, dtype=float).reshape(-1, 3)
+    a, b = np.asarray(source.starts_m, dtype=float), np.asarray(source.ends_m, dtype=float)
+    d, c = a - b, np.cross(a, b)
     cur = np.asarray(source.currents)
     out = np.empty((cur.shape[0], pts.shape[0], 3), dtype=complex)
     for s in range(0, pts.shape[0], _CHUNK):
-        ker = segment_kernel(source.starts_m, source.ends_m, pts[s:s + _CHUNK])
-        out[:, s:s + _CHUNK] = np.einsum("kn,pni->kpi", cur, ker)
+        p = pts[s:s + _CHUNK]
+        scale = _scale(p, a, b)
+        for k in range(cur.shape[0]):
+            w = scale * cur[k]
+            out[k, s:s + _CHUNK] = np.cross(p, w @ d) + w @ c
+    return out
+
+
+def h_axial(source: CurrentSource, points_m, axes) -> np.ndarray:
+    """H·**â** of every tap at points with their own unit directions, shape (k, p), complex.
+
+    (**p** × **d** + **c**)·**â** = (**â** × **p**)·**d** + **â**·**c**: matrix products only.
+    """
+    pts = np.asarray(points_m, dtype=float).reshape(-1, 3)
+    ax = np.broadcast_to(np.asarray(axes, dtype=float), pts.shape)
+    a, b = np.asarray(source.starts_m, dtype=float), np.asarray(source.ends_m, dtype=float)
+    d, c = a - b, np.cross(a, b)
+    cur = np.asarray(source.currents)
+    out = np.empty((cur.shape[0], pts.shape[0]), dtype=complex)
+    for s in range(0, pts.shape[0], _CHUNK):
+        p, u = pts[s:s + _CHUNK], ax[s:s + _CHUNK]
+        geo = _scale(p, a, b) * (np.cross(u, p) @ d.T + u @ c.T)
+        out[:, s:s + _CHUNK] = cur @ geo.T
     return out
 
 
