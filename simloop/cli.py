@@ -196,6 +196,7 @@ def cmd_demo(args) -> int:
     sweep = _run_sweep(args, spec)
     cmd_sweep(args, spec=spec, sweep=sweep)
     cmd_tune(args, spec=spec, sweep=sweep)
+    cmd_couple(args, spec=spec, sweep=sweep)
     return cmd_validate(args, spec=spec, sweep=sweep)
 
 
@@ -243,7 +244,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "(default: the channel nearest 1 MHz)")
     p.set_defaults(func=cmd_couple)
 
-    p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
+    p = sub.add_parser("demo", parents=[debug], help="sweep, tune, couple and validate the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)
     return parser

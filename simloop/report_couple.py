@@ -172,8 +172,13 @@ def plot_boost(r: CoupleResult, path: Path) -> Path:
     ax_c.legend(fontsize=8)
     ax_d = fig.add_subplot(grid[1, 1])
     ax_d.plot(r.distance_m * 100, r.distance_boost_db, "k-", lw=1.3)
+    near = " (closest allowed)" if r.optimum_at_near_limit else ""
     ax_d.plot([r.optimum_spacing_m * 100], [r.optimum_spacing_boost_db], "k*", ms=11,
-              label=f"optimum {r.optimum_spacing_m * 100:.0f} cm, {r.optimum_spacing_boost_db:.1f} dB")
+              label=f"optimum {r.optimum_spacing_m * 100:.0f} cm{near}, {r.optimum_spacing_boost_db:.1f} dB")
+    refused = ~np.isfinite(r.distance_boost_db)
+    if refused.any():
+        ax_d.axvspan(r.distance_m[0] * 100, r.distance_m[refused].max() * 100, color="0.85", hatch="//",
+                     label="too close to the wire for the model")
     ax_d.set_xlabel("rod centre along the loop axis [cm]")
     ax_d.set_ylabel("boost [dB]")
     ax_d.set_title("moving the radio straight out from the loop")
@@ -190,12 +195,13 @@ def plot_placement(r: CoupleResult, path: Path) -> Path:
     axes = [fig.add_subplot(1, n, i + 1) for i in range(n)]
     finite = r.map_boost_db[np.isfinite(r.map_boost_db)]
     vmin, vmax = (np.percentile(finite, 2), finite.max()) if finite.size else (0, 1)
-    levels = np.linspace(vmin, vmax, 13)
+    step = 3.0 if vmax - vmin > 12 else 1.0
+    levels = np.arange(np.floor(vmin / step) * step, np.ceil(vmax / step) * step + step / 2, step)
     xx, yy = np.meshgrid(r.map_x_m, r.map_y_m)
     for o, ax in enumerate(axes):
         db = np.clip(r.map_boost_db[o], vmin, None)
         cf = ax.contourf(xx, yy, db, levels=levels, cmap="cividis")
-        cs = ax.contour(xx, yy, db, levels=levels[::3], colors="k", linewidths=0.6)
+        cs = ax.contour(xx, yy, db, levels=levels[::2], colors="k", linewidths=0.6)
         ax.clabel(cs, fmt="%.0f dB", fontsize=7)
         kmap = r.map_k[o]
         if np.nanmin(kmap) < 0 < np.nanmax(kmap):
@@ -208,6 +214,8 @@ def plot_placement(r: CoupleResult, path: Path) -> Path:
         ax.annotate("", xy=(0.12 + 0.07 * np.sin(th), 0.12 + 0.07 * np.cos(th)),
                     xytext=(0.12 - 0.07 * np.sin(th), 0.12 - 0.07 * np.cos(th)),
                     xycoords="axes fraction", arrowprops=dict(arrowstyle="-", lw=4, color="w"))
+        ax.text(0.12, 0.22, "rod", transform=ax.transAxes, ha="center", color="w", fontsize=9,
+                fontweight="bold")
         ax.set_title(f"rod {MAP_ORIENTATIONS_DEG[o]:g}° from the loop axis")
         ax.set_xlabel("x, across the frame [m]")
         ax.set_ylabel("y, along the loop axis [m]")
