@@ -387,12 +387,14 @@ def _capacitor_sweep(ctx: _Context, f, tap):
 
 
 def _distance_line(ctx: _Context, f, tap, points=80):
-    """Boost with the rod moved along the loop axis through the receiver's position."""
-    front = float(np.abs(ctx.geom.starts[:, 1]).max())
+    """Boost with the rod moved along the loop axis through the receiver's position, on the
+    receiver's side of the loop; distances are |y| of the rod's centre."""
+    side = 1.0 if ctx.position[1] >= 0 else -1.0
+    front = float(np.max(side * np.concatenate([ctx.geom.starts[:, 1], ctx.geom.ends[:, 1]])))
     far = max(1.5, 3.0 * ctx.spec.frame.width_m)
-    d = np.linspace(front + ctx.rod.diameter_m, far, points)
+    d = np.linspace(max(front, 0.0) + ctx.rod.diameter_m, far, points)
     pos = np.repeat(ctx.position[None], points, axis=0)
-    pos[:, 1] = d
+    pos[:, 1] = side * d
     ax = np.repeat(ctx.axis[None], points, axis=0)
     db, _, _ = ctx.boost_at(f, tap, pos, ax)
     db[near_wire(ctx.geom, ctx.rod, pos, ax)] = np.nan

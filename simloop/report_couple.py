@@ -72,8 +72,8 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
         },
         "optimum_spacing": {"distance_m": r.optimum_spacing_m, "boost_db": r.optimum_spacing_boost_db,
                             "at_near_limit": r.optimum_at_near_limit,
-                            "line": "along the loop axis through the receiver's position; "
-                                    "distance is the rod centre's coordinate on that axis"},
+                            "line": "along the loop axis through the receiver's position, on its side of "
+                                    "the loop; distance is |y| of the rod's centre"},
         "best_position": {"position_m": r.best_position_m.tolist(), "axis": r.best_axis.tolist(),
                           "orientation_deg": r.best_orientation_deg, "boost_db": r.best_boost_db},
         "placement_map": {"x_m": r.map_x_m.tolist(), "y_m": r.map_y_m.tolist(), "z_m": r.map_z_m,
@@ -179,7 +179,7 @@ def plot_boost(r: CoupleResult, path: Path) -> Path:
     if refused.any():
         ax_d.axvspan(r.distance_m[0] * 100, r.distance_m[refused].max() * 100, color="0.85", hatch="//",
                      label="too close to the wire for the model")
-    ax_d.set_xlabel("rod centre along the loop axis [cm]")
+    ax_d.set_xlabel("rod centre's distance along the loop axis, |y| [cm]")
     ax_d.set_ylabel("boost [dB]")
     ax_d.set_title("moving the radio straight out from the loop")
     ax_d.grid(alpha=0.3)
