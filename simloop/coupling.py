@@ -488,6 +488,24 @@ def _available_ratio(ctx: _Context, f, tap):
     return rho2, 1 / np.sqrt(_q_loop(ctx, f, tap) * ctx.rod.loaded_q)
 
 
+def precheck(spec, frequency_hz=None, tap_turns=None) -> None:
+    """Bad input for :func:`run_couple` found before any solve: SpecError naming the key."""
+    if frequency_hz is not None and not (np.isfinite(frequency_hz) and 10e3 <= frequency_hz <= 30e6):
+        raise SpecError("--frequency", f"{frequency_hz} Hz is outside 10 kHz to 30 MHz")
+    if tap_turns is not None and tap_turns not in spec.taps.turns:
+        raise SpecError("--tap", f"{tap_turns} is not a tap; the taps are at "
+                                 f"{', '.join(map(str, spec.taps.turns))} turns")
+    from simloop.geometry import loop_from_spec
+
+    ctx = _Context.__new__(_Context)
+    ctx.geom = loop_from_spec(spec)
+    ctx.rod, ctx.assumed = rod_from_spec(spec.receiver)
+    if spec.receiver is not None:
+        ctx.position = np.asarray(spec.receiver.position_m, dtype=float)
+        ctx.axis = np.asarray(spec.receiver.axis, dtype=float)
+        _placement_problem(ctx)
+
+
 def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, frequency_hz=None,
                tap_turns=None, wave=DEFAULT_WAVE, map_points: int = 41) -> CoupleResult:
     """Loop–radio coupling: M and k per tap, boost per channel, capacitor and distance sweeps,

@@ -117,6 +117,27 @@ def h_field_polyline(vertices_m, points_m, current_a=1.0) -> np.ndarray:
     return h_field(src, points_m)[0].real
 
 
+def circuit_source(segment_starts_m, segment_ends_m, port_currents, origin="circuit") -> CurrentSource:
+    """A :class:`CurrentSource` from a solver's segment currents.
+
+    Parameters
+    ----------
+    segment_starts_m, segment_ends_m : array_like, (n, 3)
+        The solver's segments, current positive from start to end. [m]
+    port_currents : array_like, (k, n), complex
+        Current on each segment per ampere into tap i's port, the other ports open (a circuit
+        solver's ``solve(f).port_currents``; divide by the port current first if the solver's
+        excitation is a voltage). [-]
+    """
+    a = np.asarray(segment_starts_m, dtype=float)
+    b = np.asarray(segment_ends_m, dtype=float)
+    cur = np.atleast_2d(np.asarray(port_currents, dtype=complex))
+    if a.shape != b.shape or a.ndim != 2 or a.shape[1] != 3 or cur.shape[1] != a.shape[0]:
+        raise ValueError(f"segments {a.shape}/{b.shape} and currents {cur.shape} do not match: "
+                         f"need (n, 3), (n, 3) and (k, n)")
+    return CurrentSource(a, b, cur, origin)
+
+
 def quasi_static_source(geom) -> CurrentSource:
     """Unit current along each tap's circuit (:meth:`LoopGeometry.current_path`), 0 on open wires.
 

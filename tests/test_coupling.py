@@ -178,3 +178,9 @@ def test_couple_bad_input_exits_2(tmp_path, capsys):
     near = write_spec(tmp_path, SMALL_STACKED + RECEIVER.replace('"0.22 m"', '"0.03 m"'), "near.toml")
     assert main(["couple", str(near), "--out", str(tmp_path), "--quiet"]) == 2
     assert "receiver.position" in capsys.readouterr().err
+
+
+def test_coil_offset_off_the_rod_is_a_spec_error(tmp_path, capsys):
+    bad = write_spec(tmp_path, SMALL_STACKED + RECEIVER + 'coil_offset = "35 mm"\n', "bad.toml")
+    assert main(["check", str(bad)]) == 2
+    assert "receiver.coil_offset" in capsys.readouterr().err
