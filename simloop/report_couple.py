@@ -65,6 +65,7 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
             "frequency_hz": r.frequency_hz, "tap": int(r.tap_turns[t]),
             "loop_capacitance_f": r.loop_capacitance_f,
             "critical_k": r.critical_k, "available_power_ratio": r.available_power_ratio,
+            "winding_current_per_port_current": r.current_scale,
             "capacitor_f": r.capacitor_f.tolist(), "capacitor_boost_db": r.capacitor_boost_db.tolist(),
             "capacitor_peak_width_f": r.capacitor_width_f,
             "capacitor_peak_width_travel_m": r.capacitor_width_m,

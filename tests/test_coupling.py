@@ -156,7 +156,8 @@ def test_couple_command_end_to_end(tmp_path):
     # k, ρ² and Q's (a geometry nobody tuned for): weak coupling here, so within 0.2 dB.
     at = data["at_frequency"]
     tap = data["tap_turns"].index(at["tap"])
-    b = (data["coupling_k"][tap] / at["critical_k"]) ** 2
+    # b = α k²Q₁Q₂ with α the winding current per port current (the port's self-capacitance)
+    b = at["winding_current_per_port_current"] * (data["coupling_k"][tap] / at["critical_k"]) ** 2
     assert b < 0.3
     c = np.array(at["capacitor_f"])
     boost_at_tune = np.interp(at["loop_capacitance_f"], c, at["capacitor_boost_db"])
