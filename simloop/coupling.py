@@ -510,6 +510,28 @@ def _available_ratio(ctx: _Context, f, tap):
     return rho2, 1 / np.sqrt(_q_loop(ctx, f, tap) * ctx.rod.loaded_q)
 
 
+def _notes(ctx: _Context, tune, dist_db, j, best_map, iy, ix) -> list[str]:
+    """What the user should know about this run's numbers."""
+    notes = []
+    if not np.any(np.asarray(tune.channel_tap_index) >= 0):
+        notes.append("no tap reaches any channel with this tuner: the studies at one frequency "
+                     "assume the loop tuned there anyway")
+    if ctx.assumed:
+        notes.append("no [receiver] in the spec: a typical radio's rod is assumed "
+                     "(10 × 100 mm, μi 125, 65 turns, loaded Q 60)")
+    if np.isfinite(dist_db).any() and j == int(np.flatnonzero(np.isfinite(dist_db))[0]):
+        notes.append("the boost still rises at the closest spacing the model allows: the optimum "
+                     "may be closer still; try it by ear")
+    window = best_map[max(iy - 1, 0):iy + 2, max(ix - 1, 0):ix + 2]
+    if np.isnan(window).any():
+        notes.append("the best spot on the map borders the zone too close to the wire, where the "
+                     "model stops: nearer may be better or worse; try it by ear")
+    if ctx.rod.inductance_source == "computed":
+        notes.append(f"rod-coil inductance computed from the rod model (expected error "
+                     f"±{ctx.rod.inductance_error:.0%}); measure it and give receiver.coil_inductance")
+    return notes
+
+
 def precheck(spec, frequency_hz=None, tap_turns=None) -> None:
     """Bad input for :func:`run_couple` found before any solve: SpecError naming the key."""
     if frequency_hz is not None and not (np.isfinite(frequency_hz) and 10e3 <= frequency_hz <= 30e6):
@@ -567,19 +589,7 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
     th = np.radians(MAP_ORIENTATIONS_DEG[o])
     j = int(np.nanargmax(dist_db))
     rho2, kc = _available_ratio(ctx, f, t)
-    notes = []
-    if not np.any(np.asarray(tune.channel_tap_index) >= 0):
-        notes.append("no tap reaches any channel with this tuner: the studies at one frequency "
-                     "assume the loop tuned there anyway")
-    if ctx.assumed:
-        notes.append("no [receiver] in the spec: a typical radio's rod is assumed "
-                     "(10 × 100 mm, μi 125, 65 turns, loaded Q 60)")
-    if np.isfinite(dist_db).any() and j == int(np.flatnonzero(np.isfinite(dist_db))[0]):
-        notes.append("the boost still rises at the closest spacing the model allows (under-coupled "
-                     "there): the true optimum is closer; try it by ear")
-    if ctx.rod.inductance_source == "computed":
-        notes.append(f"rod-coil inductance computed from the rod model (expected error "
-                     f"±{ctx.rod.inductance_error:.0%}); measure it and give receiver.coil_inductance")
+    notes = _notes(ctx, tune, dist_db, j, map_db[o], iy, ix)
     return CoupleResult(
         name=spec.name, rod=ctx.rod, receiver_assumed=ctx.assumed, position_m=ctx.position,
         axis=ctx.axis / np.linalg.norm(ctx.axis), wave_direction=ctx.direction,
