@@ -7,6 +7,7 @@ Notebook API::
     result = simloop.sweep(spec)          # SweepResult; result.to_network() is an skrf.Network
     chart = simloop.tune(spec, result)    # TuneResult
     check = simloop.validate(spec, result)  # ValidationResult
+    link = simloop.couple(spec, result)     # CoupleResult: boost, placement, loop-radio 2-port
 """
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
@@ -38,6 +39,16 @@ def tune(spec, sweep_result, band="itu-1", field_v_per_m=1e-3):
     return run_tune(spec, sweep_result, band=band, field_v_per_m=field_v_per_m)
 
 
+def couple(spec, sweep=None, tune=None, **kwargs):
+    """Loop-to-radio coupling (boost, placement, 2-port); runs the sweep and the tuning chart
+    when not given. See :func:`simloop.coupling.run_couple` for the keywords."""
+    from simloop.coupling import run_couple
+
+    sweep = sweep if sweep is not None else globals()["sweep"](spec)
+    tune = tune if tune is not None else globals()["tune"](spec, sweep)
+    return run_couple(spec, sweep, tune, **kwargs)
+
+
 def validate(spec, sweep_result, **kwargs):
     """MoM against the quasi-static model and handbook formulas. See :func:`simloop.validation.run_validate`."""
     from simloop.validation import run_validate
@@ -45,4 +56,4 @@ def validate(spec, sweep_result, **kwargs):
     return run_validate(spec, sweep_result, **kwargs)
 
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "load", "sweep", "tune", "validate"]
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "couple", "load", "sweep", "tune", "validate"]

@@ -280,6 +280,32 @@ def cmd_study(args, spec=None, source_text=None) -> int:
     return _solve_failures(args, result.sweep)
 
 
+def cmd_couple(args, spec=None, sweep=None) -> int:
+    """Loop-to-radio coupling: boost per channel, placement map, optimum spacing, the 2-port."""
+    from simloop.coupling import precheck, run_couple
+    from simloop.report import output_set
+    from simloop.report_couple import format_couple_summary, write_couple
+    from simloop.spec import load
+    from simloop.tuning import run_tune
+    from simloop.units import parse_quantity
+
+    given = sweep is not None
+    band, field = _tune_options(args)
+    frequency = getattr(args, "frequency", None)
+    frequency = parse_quantity(frequency, "frequency", "--frequency", sign="positive") if frequency else None
+    spec = spec or load(args.spec)
+    precheck(spec, frequency, getattr(args, "tap", None))  # bad --tap/--frequency/rod before any solve
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    tune = run_tune(spec, sweep, band=band, field_v_per_m=field)
+    result = run_couple(spec, sweep, tune, frequency_hz=frequency, tap_turns=getattr(args, "tap", None))
+    with output_set(out, "couple", {"name": spec.name}) as (stage, paths):
+        write_couple(result, stage, z0=args.z0)
+    if not args.quiet:
+        print(format_couple_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0 if given else _solve_failures(args, sweep)
+
+
 def cmd_demo(args) -> int:
     """The study of the bundled demo loop: every output and report.html into results/demo/."""
     from simloop.spec import loads
@@ -341,6 +367,15 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
         p.add_argument("--format", choices=("text", "json"), default="text",
                        help="summary on stdout: short text, or JSON for scripts")
+
+    p = sub.add_parser("couple", parents=[debug], help="loop-to-radio coupling: boost, placement map, 2-port")
+    common(p)
+    tune_options(p)
+    p.add_argument("--tap", type=int, default=None, help="tap (in turns) for the single-frequency studies")
+    p.add_argument("--frequency", default=None,
+                   help='frequency of the capacitor, distance and placement studies, e.g. "1 MHz" '
+                        "(default: the channel nearest 1 MHz)")
+    p.set_defaults(func=cmd_couple)
 
     p = sub.add_parser("study", parents=[debug],
                        help="sweep, tune and validate in one pass; all outputs plus report.html")

@@ -45,7 +45,8 @@ Keys and defaults (sections other than frame, winding, wire and taps are optiona
     [receiver] rod_length, rod_diameter [length], permeability [-], coil_turns (int),
                coil_length [length], loaded_q [-], position = [x, y, z] [length],
                axis = [ax, ay, az] (default [0, 1, 0], normalised), coil_inductance [inductance]
-               (optional: the measured inductance of the rod coil)
+               (optional: the measured inductance of the rod coil), coil_offset [length]
+               (optional, default 0: the coil's centre from the rod's middle)
     [pattern]  frequency (default "1 MHz"), elevation = [angles] (default ["0 deg"]),
                polarization = "vertical" (default) | "horizontal"
 """
@@ -256,7 +257,8 @@ class ReceiverSpec:
     ``rod_length_m``, ``rod_diameter_m``, ``coil_length_m`` [m]; ``permeability`` initial
     permeability of the ferrite [-]; ``coil_turns`` [-]; ``loaded_q`` of the radio's tuned rod
     circuit [-]; ``position_m`` rod centre (x, y, z) [m]; ``axis`` unit vector along the rod [-];
-    ``coil_inductance_h`` measured rod-coil inductance [H], None when not given.
+    ``coil_inductance_h`` measured rod-coil inductance [H], None when not given;
+    ``coil_offset_m`` the coil's centre from the rod's middle [m].
     """
 
     rod_length_m: float
@@ -268,6 +270,7 @@ class ReceiverSpec:
     position_m: tuple[float, float, float]
     axis: tuple[float, float, float] = (0.0, 1.0, 0.0)
     coil_inductance_h: float | None = None
+    coil_offset_m: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -486,6 +489,7 @@ class _ReceiverIn(_Table):
     axis: Annotated[list[_Component], Field(min_length=3, max_length=3)] = [
         _W(0.0, "0"), _W(1.0, "1"), _W(0.0, "0")]
     coil_inductance: _Inductance | None = None
+    coil_offset: _Coordinate | None = None
 
 
 class _PatternIn(_Table):
@@ -864,6 +868,10 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
                                                f"{r.permeability.text}"))
         if r.coil_turns < 1:
             p.append(("receiver.coil_turns", f"must be at least 1, got {r.coil_turns}"))
+        off = r.coil_offset
+        if off is not None and not abs(off.value) + r.coil_length.value / 2 <= r.rod_length.value / 2:
+            p.append(("receiver.coil_offset", f"{off.text} puts the coil (length {r.coil_length.text}) "
+                                              f"past the end of the rod (length {r.rod_length.text})"))
         if all(c.value == 0 for c in r.axis):
             p.append(("receiver.axis", f"[{', '.join(c.text for c in r.axis)}] has no direction; "
                                        f"give a non-zero vector such as [0, 1, 0]"))
@@ -953,7 +961,8 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
             coil_length_m=r.coil_length.value, loaded_q=r.loaded_q.value,
             position_m=(r.position[0].value, r.position[1].value, r.position[2].value),
             axis=(float(ax[0]), float(ax[1]), float(ax[2])),
-            coil_inductance_h=r.coil_inductance.value if r.coil_inductance else None)
+            coil_inductance_h=r.coil_inductance.value if r.coil_inductance else None,
+            coil_offset_m=r.coil_offset.value if r.coil_offset else 0.0)
     pattern = None
     if m.pattern is not None:
         pattern = PatternSpec(frequency_hz=m.pattern.frequency.value,
