@@ -1,5 +1,10 @@
 """The loop–rod 2-port: the full solve against coupled-circuit theory (Terman 1943, sec. 3), and
-the whole `couple` study on a small loop."""
+the whole `couple` study on a small loop.
+
+Sources: F. E. Terman, *Radio Engineers' Handbook*, McGraw-Hill, 1943, sec. 3 (coupled tuned
+circuits; the both-tuned gain derived from it in docs/references.md §10 and §17); Faraday's law for
+the loop's open-circuit voltage; Wheeler's air-coil formula for the rod coil's limit.
+"""
 
 from __future__ import annotations
 

@@ -1,4 +1,9 @@
-"""Biot–Savart field of the loop's segments and the loop–rod mutual inductance."""
+"""Biot–Savart field of the loop's segments and the loop–rod mutual inductance.
+
+Sources: magpylib 6.x (analytic fields of current polylines, an outside implementation); the
+on-axis field of a rectangle and of a circle (Biot–Savart closed forms, docs/references.md §2);
+Maxwell, *Treatise*, 1873, art. 701 (coaxial circles, via scipy.special.ellipk/ellipe).
+"""
 
 from __future__ import annotations
 

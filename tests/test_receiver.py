@@ -1,6 +1,11 @@
 """Ferrite-rod model: demagnetising factors, flux profile, coil inductance, effective height.
 
 Every check value names its source and mark; tolerances say where they come from.
+
+Sources: Osborn, Phys. Rev. 67, 1945 and Stoner, Phil. Mag. 36, 1945 (prolate spheroid);
+DeVore & Bohley, IEEE Trans. AP-25, 1977 (rod permeability); magpylib 6.x and scipy quadrature
+(uniform magnetisation of a cylinder); an independent axisymmetric surface-charge solution in
+tests/axisymmetric_bem.py (computed, docs/references.md §6 and §17); Wheeler 1928 (air coils).
 """
 
 from __future__ import annotations
