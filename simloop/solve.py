@@ -17,17 +17,22 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import math
 import multiprocessing as mp
 import os
+import shutil
+import signal
 import tempfile
+import threading
 import time
+import warnings
 from dataclasses import dataclass
 from multiprocessing.connection import wait
 from pathlib import Path
 
 import numpy as np
 
-from simloop.errors import SolverError
+from simloop.errors import CacheWarning, SolverError
 
 SOLVER_VERSION = "pynec-2.3.4/simloop-solve-1"
 
@@ -215,13 +220,37 @@ def _solve_ports(mesh: dict, env: dict, frequency_hz: float) -> dict:
     return {"y_re": y.real.tolist(), "y_im": y.imag.tolist(), "seconds": time.perf_counter() - t0}
 
 
+def _die_with_parent() -> None:
+    """Ask Linux to SIGKILL this process when its parent dies (prctl PR_SET_PDEATHSIG).
+
+    A parent killed outright (SIGKILL, out of memory) cannot stop its workers; without this they
+    would run on under PID 1 until their solve ends. Best effort: a no-op elsewhere.
+    """
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+
+
 def _worker(conn, function: str, *args):
     """Body of a forked solver process: run ``function`` of this module, send the result back.
 
     The function is looked up by name at run time, so a test can replace it before the fork.
+    Ctrl-C reaches the whole process group: the worker ignores it and the parent, which owns the
+    workers, stops them; SIGTERM gets its default action back (the parent may have a handler).
+    The parent forks with both signals blocked, so none can arrive before this is set up.
     """
     import faulthandler
 
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    _die_with_parent()
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT, signal.SIGTERM})
+    if os.getppid() == 1:  # the parent died before the death signal was armed
+        os._exit(1)
     faulthandler.disable()  # a crash of nec2++ is reported by the parent, not dumped by the child
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     try:
@@ -237,42 +266,134 @@ def estimated_seconds(n_segments: int) -> float:
     return 1.8e-7 * n_segments**2 + 2.9e-10 * n_segments**3
 
 
+#: A temporary cache file older than this belongs to a process that died while writing it (a
+#: write takes milliseconds); younger ones may be another run's entry in flight and are left alone.
+STALE_TEMPORARY_S = 3600.0
+
+
 class SolveCache:
     """Content-addressed store of port solutions: one JSON file per (mesh, frequency, environment).
 
-    Writes go to a temporary file, are fsynced and renamed into place, so a killed run never leaves
-    a corrupt entry and a rerun picks up every frequency already solved.
+    Every finished solve is stored the moment it arrives, through a temporary file of a unique
+    name that is fsynced and renamed into place, so a killed run never leaves a corrupt entry and
+    a rerun picks up every frequency already solved. Several runs may share one cache: a run
+    deletes only its own temporaries (and ones too old to be anybody's write in flight).
+
+    An entry is checked on read (:meth:`get` with ``expect``): it must answer the request it is
+    filed under and hold finite numbers of the expected shape; anything else (truncated, edited,
+    binary, a directory in its place) is a miss, and the fresh solve replaces it. A cache that
+    cannot be created or written (read-only, full disk) gives one :class:`CacheWarning` and the
+    run carries on without storing.
     """
 
     def __init__(self, root: str | os.PathLike | None):
         self.root = Path(root) if root is not None else None
-        if self.root is not None:
+        self.writable = self.root is not None
+        self.problem: str | None = None
+        if self.root is None:
+            return
+        try:
             self.root.mkdir(parents=True, exist_ok=True)
-            for stale in self.root.glob("*.tmp"):
-                stale.unlink(missing_ok=True)
+            if not self.root.is_dir():
+                raise NotADirectoryError(f"{self.root} is not a folder")
+        except OSError as exc:
+            self._give_up(exc)
+            return
+        self._sweep_stale_temporaries()
+
+    def _sweep_stale_temporaries(self) -> None:
+        now = time.time()
+        for stale in self.root.glob("*.tmp"):
+            try:
+                if now - stale.lstat().st_mtime > STALE_TEMPORARY_S:
+                    stale.unlink()
+            except OSError:
+                pass
+
+    def _give_up(self, exc: BaseException) -> None:
+        """Stop storing (once, with one warning); solving goes on."""
+        if not self.writable:
+            return
+        self.writable = False
+        self.problem = f"the solve cache {self.root} cannot be written ({exc}); carrying on without storing solves"
+        warnings.warn(self.problem, CacheWarning, stacklevel=3)
 
     def key(self, mesh_digest: str, env: dict, frequency_hz: float) -> str:
         blob = json.dumps([SOLVER_VERSION, mesh_digest, env, f"{frequency_hz:.6f}"], sort_keys=True)
         return hashlib.sha256(blob.encode()).hexdigest()
 
-    def get(self, key: str) -> dict | None:
+    def get(self, key: str, expect=None) -> dict | None:
+        """The stored entry for ``key``, or None when absent or unusable.
+
+        ``expect(entry) -> bool`` checks the content (shape, dtype, finiteness); an entry must also
+        name ``key`` as the request it answers.
+        """
         if self.root is None:
             return None
         path = self.root / f"{key}.json"
         try:
-            return json.loads(path.read_text())
-        except (FileNotFoundError, json.JSONDecodeError):
+            entry = json.loads(path.read_bytes().decode("utf-8"))
+        except (OSError, ValueError, RecursionError):  # missing, a directory, binary, not JSON
             return None
+        if not isinstance(entry, dict) or entry.get("key") != key:
+            return None
+        try:
+            ok = expect is None or bool(expect(entry))
+        except (KeyError, TypeError, ValueError, IndexError, AttributeError, OverflowError):
+            ok = False
+        return entry if ok else None
 
     def put(self, key: str, value: dict) -> None:
-        if self.root is None:
+        """Store ``value`` under ``key`` atomically; an unwritable cache warns once and is skipped."""
+        if self.root is None or not self.writable:
             return
-        fd, tmp = tempfile.mkstemp(dir=self.root, suffix=".tmp")
-        with os.fdopen(fd, "w") as fh:
-            json.dump(value, fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, self.root / f"{key}.json")
+        target = self.root / f"{key}.json"
+        tmp = None
+        try:
+            fd, tmp = tempfile.mkstemp(dir=self.root, prefix=f".{key[:16]}-", suffix=".tmp")
+            with os.fdopen(fd, "w") as fh:
+                json.dump({**value, "key": key}, fh, allow_nan=False)
+                fh.flush()
+                os.fsync(fh.fileno())
+            if target.is_dir() and not target.is_symlink():  # a bad entry in the way: replace it
+                shutil.rmtree(target)
+            os.replace(tmp, target)
+            tmp = None
+        except (OSError, ValueError) as exc:
+            self._give_up(exc)
+        finally:
+            if tmp is not None:
+                try:
+                    os.unlink(tmp)
+                except OSError:
+                    pass
+
+
+def _finite_array(values, shape) -> bool:
+    a = np.asarray(values, dtype=float)
+    return a.shape == tuple(shape) and bool(np.all(np.isfinite(a)))
+
+
+def _ports_entry_ok(entry: dict, k: int) -> bool:
+    """A cached port matrix: k × k finite, invertible, with a finite non-negative solve time."""
+    seconds = entry["seconds"]
+    if not (_finite_array(entry["y_re"], (k, k)) and _finite_array(entry["y_im"], (k, k))
+            and isinstance(seconds, (int, float)) and math.isfinite(seconds) and seconds >= 0):
+        return False
+    y = np.asarray(entry["y_re"], dtype=float) + 1j * np.asarray(entry["y_im"], dtype=float)
+    try:
+        return bool(np.all(np.isfinite(np.linalg.inv(y))))
+    except np.linalg.LinAlgError:
+        return False
+
+
+def _far_field_entry_ok(entry: dict, k: int, step_deg: float) -> bool:
+    n_theta = int(round(180.0 / step_deg)) + 1
+    n_phi = int(round(360.0 / step_deg))
+    shape = (k, n_phi, n_theta)
+    return (_ports_entry_ok(entry, k) and _finite_array(entry["theta_deg"], (n_theta,))
+            and _finite_array(entry["phi_deg"], (n_phi,))
+            and all(_finite_array(entry[name], shape) for name in ("e_theta_re", "e_theta_im", "e_phi_re", "e_phi_im")))
 
 
 def solve_ports(mesh, env: Environment, frequencies_hz, *, workers: int | None = None,
@@ -451,109 +572,169 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
     :func:`solve_ports`) or a :class:`FarFieldSolution` (kind ``"far_field"``, as
     :func:`solve_far_field`), or the :class:`SolverError` it raised. Misses run longest first
     (by the measured cost law), so that one big mesh does not finish alone at the end.
-    ``timeout_s`` per solve defaults to 20 × the largest cost estimate + 60 s.
+    ``timeout_s`` per solve defaults to 20 × the largest cost estimate + 60 s. Each finished
+    solve is stored in ``cache`` as it arrives, so an interrupted call keeps every solve it
+    finished; the worker processes are stopped when the call ends for any reason.
     """
     requests = list(requests)
     results: list = [None] * len(requests)
-    jobs, where, keys, costs = [], [], [], []
+    jobs = []  # (request index, worker args, cache key, cost)
     for i, r in enumerate(requests):
-        payload = r.mesh.as_payload()
-        env_payload = r.env.as_payload()
+        args, key_env, cost = _job(r)
         f = float(r.frequency_hz)
-        validate_payload(payload, f)
-        if r.kind == "ports":
-            key_env, args = env_payload, ("_solve_ports", payload, env_payload, f)
-            cost = estimated_seconds(r.mesh.n_segments)
-        elif r.kind == "far_field":
-            if r.env.ground != "free-space":
-                raise ValueError(f"a full-sphere far field needs free space, not ground {r.env.ground!r}")
-            ratio = 90.0 / float(r.step_deg)
-            if not abs(ratio - round(ratio)) < 1e-9:
-                raise ValueError(f"step_deg = {r.step_deg!r}: 90 / step must be a whole number")
-            key_env = {**env_payload, "far_field_step_deg": float(r.step_deg)}
-            args = ("_solve_far_field", payload, env_payload, f, float(r.step_deg))
-            n_dirs = (int(round(180 / r.step_deg)) + 1) * int(round(360 / r.step_deg))
-            cost = estimated_seconds(r.mesh.n_segments) + len(r.mesh.port_tags) * 5e-8 * r.mesh.n_segments * n_dirs
-        else:
-            raise ValueError(f"unknown solve kind {r.kind!r}")
         key = cache.key(r.mesh.digest(), key_env, f) if cache else None
-        hit = cache.get(key) if cache else None
+        hit = cache.get(key, expect=_entry_check(r)) if cache else None
         if hit is not None:
-            results[i] = (PortSolution(f, np.array(hit["y_re"]) + 1j * np.array(hit["y_im"]), hit["seconds"],
-                                       cached=True) if r.kind == "ports" else _far_field_from(f, hit, cached=True))
-            continue
-        jobs.append(args)
-        where.append(i)
-        keys.append(key)
-        costs.append(cost)
+            results[i] = _solution(r, hit, cached=True)
+        else:
+            jobs.append((i, args, key, cost))
     total = len(requests)
     done = total - len(jobs)
     if progress:
         progress(done, total)
-    order = sorted(range(len(jobs)), key=lambda j: -costs[j])
+
+    def arrived(j: int, status: str, out) -> None:
+        i, _, key, _ = jobs[j]
+        results[i] = _result(requests[i], status, out)
+        if cache and not isinstance(results[i], SolverError):
+            cache.put(key, {**out, "frequency_hz": float(requests[i].frequency_hz), "kind": requests[i].kind})
+
+    order = sorted(range(len(jobs)), key=lambda j: -jobs[j][3])
     workers = max(1, workers or os.cpu_count() or 1)
-    timeout_s = timeout_s or (20 * max(costs, default=0.0) + 60)
-    outs = _run_many(jobs, order, workers, timeout_s, progress, done, total)
-    for j, (status, out) in enumerate(outs):
-        i = where[j]
-        r = requests[i]
-        f = float(r.frequency_hz)
-        label = "" if r.kind == "ports" else " (far field)"
-        if status != "ok":
-            results[i] = SolverError(f"{f / 1e6:.6g} MHz{label}: {out}")
-            continue
-        if r.kind == "ports":
-            sol = PortSolution(f, np.array(out["y_re"]) + 1j * np.array(out["y_im"]), out["seconds"])
-            finite = np.all(np.isfinite(sol.y_raw))
-        else:
-            sol = _far_field_from(f, out, cached=False)
-            finite = (np.all(np.isfinite(sol.y_raw)) and np.all(np.isfinite(sol.e_theta_v))
-                      and np.all(np.isfinite(sol.e_phi_v)))
-        if not finite:
-            results[i] = SolverError(f"{f / 1e6:.6g} MHz{label}: the solver returned NaN")
-            continue
-        results[i] = sol
-        if cache:
-            cache.put(keys[j], out)
+    timeout_s = timeout_s or (20 * max((c for *_, c in jobs), default=0.0) + 60)
+    _run_many([a for _, a, _, _ in jobs], order, workers, timeout_s, progress, done, total, on_result=arrived)
     return results
 
 
-def _run_many(jobs, order, workers, timeout_s, progress, done, total):
+def _job(r: SolveRequest) -> tuple[tuple, dict, float]:
+    """Worker arguments, the environment part of the cache key, and the cost estimate of a request."""
+    payload = r.mesh.as_payload()
+    env_payload = r.env.as_payload()
+    f = float(r.frequency_hz)
+    validate_payload(payload, f)
+    if r.kind == "ports":
+        return ("_solve_ports", payload, env_payload, f), env_payload, estimated_seconds(r.mesh.n_segments)
+    if r.kind != "far_field":
+        raise ValueError(f"unknown solve kind {r.kind!r}")
+    if r.env.ground != "free-space":
+        raise ValueError(f"a full-sphere far field needs free space, not ground {r.env.ground!r}")
+    ratio = 90.0 / float(r.step_deg)
+    if not abs(ratio - round(ratio)) < 1e-9:
+        raise ValueError(f"step_deg = {r.step_deg!r}: 90 / step must be a whole number")
+    key_env = {**env_payload, "far_field_step_deg": float(r.step_deg)}
+    args = ("_solve_far_field", payload, env_payload, f, float(r.step_deg))
+    n_dirs = (int(round(180 / r.step_deg)) + 1) * int(round(360 / r.step_deg))
+    cost = estimated_seconds(r.mesh.n_segments) + len(r.mesh.port_tags) * 5e-8 * r.mesh.n_segments * n_dirs
+    return args, key_env, cost
+
+
+def _entry_check(r: SolveRequest):
+    """The content check a cache entry for request ``r`` must pass (see :meth:`SolveCache.get`)."""
+    k = len(r.mesh.port_tags)
+    if r.kind == "ports":
+        return lambda e: _ports_entry_ok(e, k)
+    return lambda e: _far_field_entry_ok(e, k, float(r.step_deg))
+
+
+def _solution(r: SolveRequest, data: dict, cached: bool):
+    f = float(r.frequency_hz)
+    if r.kind == "ports":
+        return PortSolution(f, np.array(data["y_re"]) + 1j * np.array(data["y_im"]), data["seconds"], cached=cached)
+    return _far_field_from(f, data, cached=cached)
+
+
+def _result(r: SolveRequest, status: str, out):
+    """A worker's answer as a solution, or the SolverError saying why there is none."""
+    f = float(r.frequency_hz)
+    label = "" if r.kind == "ports" else " (far field)"
+    if status != "ok":
+        return SolverError(f"{f / 1e6:.6g} MHz{label}: {out}")
+    sol = _solution(r, out, cached=False)
+    arrays = [sol.y_raw] if r.kind == "ports" else [sol.y_raw, sol.e_theta_v, sol.e_phi_v]
+    if not all(np.all(np.isfinite(a)) for a in arrays):
+        return SolverError(f"{f / 1e6:.6g} MHz{label}: the solver returned NaN")
+    return sol
+
+
+_BLOCKED = {signal.SIGINT, signal.SIGTERM}
+
+
+def _start(ctx, job):
+    """Fork one worker with SIGINT and SIGTERM blocked (the worker sets up its own handling)."""
+    reader, writer = ctx.Pipe(duplex=False)
+    proc = ctx.Process(target=_worker, args=(writer, *job), daemon=True)
+    main = threading.current_thread() is threading.main_thread()
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, _BLOCKED) if main else None
+    try:
+        proc.start()
+    finally:
+        if old is not None:
+            signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        writer.close()
+    return reader, proc
+
+
+def _stop(running: dict) -> None:
+    """Kill and reap every worker still running (on an interrupt, an error or a signal)."""
+    for reader, (_, proc, _) in list(running.items()):
+        if proc.is_alive():
+            proc.kill()
+    for reader, (_, proc, _) in list(running.items()):
+        proc.join(timeout=5)
+        reader.close()
+    running.clear()
+
+
+def _collect(reader, proc, started, ready, now, timeout_s):
+    """(status, payload) of a worker that answered, died or timed out; None while it still runs."""
+    if reader in ready:
+        try:
+            status, payload = reader.recv()
+        except (EOFError, OSError):
+            proc.join()
+            return "error", f"the solver process died (exit code {proc.exitcode})"
+        proc.join()
+        return status, payload
+    if now - started > timeout_s:
+        proc.kill()
+        proc.join()
+        return "error", f"no answer within {timeout_s:.0f} s (killed)"
+    return None
+
+
+def _run_many(jobs, order, workers, timeout_s, progress, done, total, on_result=None):
     """Run jobs (function name, *args) in :func:`_worker` processes in the given order, at most
-    ``workers`` at a time; a crash or a timeout becomes ("error", message) for that job."""
+    ``workers`` at a time; a crash or a timeout becomes ("error", message) for that job.
+
+    ``on_result(j, status, payload)`` runs for each job the moment it ends (the caller stores the
+    solve there). However this returns (done, an exception, KeyboardInterrupt, a signal handler
+    raising), no worker is left running.
+    """
     ctx = mp.get_context("fork")
     out: list = [None] * len(jobs)
     todo = list(order)
     running: dict = {}
-    while todo or running:
-        while todo and len(running) < workers:
-            j = todo.pop(0)
-            reader, writer = ctx.Pipe(duplex=False)
-            proc = ctx.Process(target=_worker, args=(writer, *jobs[j]), daemon=True)
-            proc.start()
-            writer.close()
-            running[reader] = (j, proc, time.monotonic())
-        ready = wait(list(running), timeout=1.0)
-        now = time.monotonic()
-        for reader in list(running):
-            j, proc, started = running[reader]
-            if reader in ready:
-                try:
-                    status, payload = reader.recv()
-                except EOFError:
-                    proc.join()
-                    status, payload = "error", f"the solver process died (exit code {proc.exitcode})"
-                proc.join()
-            elif now - started > timeout_s:
-                proc.kill()
-                proc.join()
-                status, payload = "error", f"no answer within {timeout_s:.0f} s (killed)"
-            else:
-                continue
-            reader.close()
-            del running[reader]
-            out[j] = (status, payload)
-            done += 1
-            if progress:
-                progress(done, total)
+    try:
+        while todo or running:
+            while todo and len(running) < workers:
+                j = todo.pop(0)
+                reader, proc = _start(ctx, jobs[j])
+                running[reader] = (j, proc, time.monotonic())
+            ready = wait(list(running), timeout=1.0)
+            now = time.monotonic()
+            for reader in list(running):
+                j, proc, started = running[reader]
+                got = _collect(reader, proc, started, ready, now, timeout_s)
+                if got is None:
+                    continue
+                reader.close()
+                del running[reader]
+                out[j] = got
+                if on_result is not None:
+                    on_result(j, *got)
+                done += 1
+                if progress:
+                    progress(done, total)
+    finally:
+        _stop(running)
     return out
