@@ -165,6 +165,23 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
     return 0
 
 
+def cmd_pattern(args, spec=None, sweep=None) -> int:
+    from simloop.pattern import run_pattern
+    from simloop.report_pattern import format_pattern_summary, write_pattern
+
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    progress = _Progress(args.quiet)
+    try:
+        result = run_pattern(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress)
+    finally:
+        progress.close()
+    paths = write_pattern(result, out)
+    if not args.quiet:
+        print(format_pattern_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0
+
+
 def cmd_demo(args) -> int:
     """Sweep, tune and validate the bundled demo loop: every output into one folder."""
     from simloop.spec import loads
@@ -215,6 +232,10 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
+    p = sub.add_parser("pattern", parents=[debug],
+                       help="receive patterns of the loop (and the radio's rod), their nulls and what fills them")
+    common(p)
+    p.set_defaults(func=cmd_pattern)
     p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
     common(p, spec=False)
     p.set_defaults(func=cmd_demo)

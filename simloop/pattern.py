@@ -269,7 +269,9 @@ class PortFarField:
         self.e_phi_v = np.einsum("mj,m...->j...", z, np.asarray(far_field.e_phi_v))
         k = 2 * np.pi * self.frequency_hz / C0
         self._scale = 4j * np.pi / (k * ETA0)  # h = r·E · 4πj/(kη0) per unit current
-        self._theta_spline = CubicSpline(self.theta_deg, np.stack([self.e_theta_v, self.e_phi_v]), axis=-1)
+        both = np.stack([self.e_theta_v, self.e_phi_v])
+        self._theta_spline = CubicSpline(self.theta_deg, both, axis=-1) if self.theta_deg.size >= 4 else None
+        self._exact = {round(float(t), 9): both[..., i] for i, t in enumerate(self.theta_deg)}
         self._rows: dict[float, CubicSpline] = {}
 
     @property
@@ -279,7 +281,12 @@ class PortFarField:
     def _row(self, theta_deg: float) -> CubicSpline:
         key = round(float(theta_deg), 9)
         if key not in self._rows:
-            row = self._theta_spline(key)  # (2, k, nφ)
+            if key in self._exact:
+                row = self._exact[key]  # (2, k, nφ)
+            elif self._theta_spline is not None:
+                row = self._theta_spline(key)
+            else:
+                raise ValueError(f"θ = {key}° is not among the far-field rows {sorted(self._exact)}")
             phi = np.append(self.phi_deg, self.phi_deg[0] + 360.0)
             row = np.concatenate([row, row[..., :1]], axis=-1)
             self._rows[key] = CubicSpline(phi, row, axis=-1, bc_type="periodic")
@@ -293,6 +300,7 @@ class PortFarField:
         th = 90.0 - el
         if np.any(th < self.theta_deg.min() - 1e-9) or np.any(th > self.theta_deg.max() + 1e-9):
             raise ValueError("an elevation outside the far-field grid was asked for")
+        th = np.round(th, 9)
         for t in np.unique(th):
             sel = th == t
             out[:, :, sel] = self._row(t)(np.mod(az[sel] - self.phi_deg[0], 360.0) + self.phi_deg[0])
@@ -594,7 +602,7 @@ def _nulls_of(resp: _Response, azimuth_deg, elevation_deg, reference: float) -> 
 
         for az, depth in find_minima(mag, azimuth_deg, reference):
             if depth <= DEPTH_FLOOR_DB or resp.parts is None:
-                cause, detail = ("exact" if depth <= DEPTH_FLOOR_DB else "model"), {}
+                cause, detail = ("exact" if depth <= DEPTH_FLOOR_DB else "not-split"), {}
             else:
                 magnetic, electric = resp.parts
                 cause, detail = null_cause(lambda x, el=el: resp.at(x, el), lambda x, el=el: magnetic(x, el),
@@ -603,15 +611,18 @@ def _nulls_of(resp: _Response, azimuth_deg, elevation_deg, reference: float) -> 
     return out
 
 
-def pattern_from_far_field(far_field, sweep, tuner, *, elevation_deg=(0.0,), polarization="vertical",
-                           receiver=None, rod_voltage=None, floor_hz: float = 0.0,
-                           azimuth_step_deg: float = AZIMUTH_STEP_DEG) -> PatternResult:
+def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, elevation_deg=(0.0,),
+                           polarization="vertical", receiver=None, rod_voltage=None, floor_hz: float = 0.0,
+                           azimuth_step_deg: float = AZIMUTH_STEP_DEG, notes=()) -> PatternResult:
     """Loop and rod patterns, with their nulls, from a solved MoM far field.
 
     Parameters
     ----------
-    far_field : simloop.solve.FarFieldSolution
-        Port-excitation far fields at the pattern frequency (free space, full sphere).
+    pff : PortFarField
+        Port-excitation far fields at the pattern frequency, with rows at the elevations.
+    moments : (m, p, residual), optional
+        The loop's dipole moments (:meth:`PortFarField.fit_dipole_moments`, free space); they
+        split each loop null into its causes. None (over ground): causes are not split.
     sweep : simloop.impedance.SweepResult
         Its model gives the tap impedance for the tuned-capacitor voltage.
     tuner : simloop.tuner.RangeTuner or PlateTuner
@@ -627,15 +638,19 @@ def pattern_from_far_field(far_field, sweep, tuner, *, elevation_deg=(0.0,), pol
     azimuth_step_deg : float
         Coarse grid step. [deg]
     """
-    f = float(far_field.frequency_hz)
-    pff = PortFarField(far_field)
-    m, p, resid = pff.fit_dipole_moments()
+    f = pff.frequency_hz
     tap, cap, zii = tuned_tap(sweep, tuner, f)
     factor = capacitor_divider(zii, cap, tuner.q, f)
     az = np.arange(0.0, 360.0, azimuth_step_deg)
     els = np.asarray(elevation_deg, dtype=float)
     loop_model = "mom" if f >= floor_hz else "mom-below-floor"
-    at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)
+    if moments is not None:
+        m, p, resid = moments
+        at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)
+    else:
+        nan = np.full((pff.ports, 3), np.nan + 0j)
+        m, p, resid = nan, nan, np.full(pff.ports, np.nan)
+        at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)[0], None
     responses = [_Response("loop", np.array([at(az, e) for e in els]), at, loop_model, parts)]
     if receiver is not None:
         rod_model = "dipole" if rod_voltage is None else getattr(rod_voltage, "model_name", "receiver")
@@ -650,7 +665,7 @@ def pattern_from_far_field(far_field, sweep, tuner, *, elevation_deg=(0.0,), pol
         ref = float(np.max(np.abs(r.values)))
         response_db[r.name] = _db(r.values, ref)
         nulls += _nulls_of(r, az, els, ref)
-    notes = _pattern_notes(f, floor_hz, els, polarization, resid[tap])
+    notes = list(notes) + _pattern_notes(f, floor_hz, els, polarization, resid[tap])
     return PatternResult(
         frequency_hz=f, azimuth_deg=az, elevation_deg=els,
         polarization=polarization if isinstance(polarization, str) else str(polarization),
@@ -670,42 +685,123 @@ def _pattern_notes(f: float, floor_hz: float, els, polarization, residual: float
     return notes
 
 
+def radiated_power_w(e_theta_v, e_phi_v, theta_deg, phi_deg) -> float:
+    r"""Power radiated by r·E on a θ–φ grid over the sphere (θ 0–180°) or the upper half space
+    (θ 0–90°, over a ground), P = ∮ (|rE_θ|² + |rE_φ|²)/(2η0) dΩ. [W]
+
+    Composite Simpson in θ with the sin θ of the solid angle, uniform in φ (the sphere case is
+    :func:`simloop.validation.sphere_weights`).
+    """
+    th = np.radians(np.asarray(theta_deg, dtype=float))
+    n = th.size - 1
+    if n < 2 or n % 2 or abs(th[0]) > 1e-9 or not (abs(th[-1] - np.pi) < 1e-9 or abs(th[-1] - np.pi / 2) < 1e-9):
+        raise ValueError("θ must run uniformly from 0° to 180° or 90° with an even number of intervals")
+    simpson = np.ones(th.size)
+    simpson[1:-1:2], simpson[2:-1:2] = 4.0, 2.0
+    w = np.radians(360.0 / len(phi_deg)) * (simpson * (th[1] - th[0]) / 3 * np.sin(th))[None, :]
+    return float(np.sum(w * (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2)) / (2 * ETA0))
+
+
+#: Radiated over input power may exceed 1 by this much before a solve is refused: the average
+#: gain test's acceptance band (common practice in NEC modelling: 0.95–1.05).
+POWER_EXCESS = 0.05
+
+
+def power_check(grid: PortFarField, tap: int, where: str) -> float:
+    """Refuse a solve that breaks energy conservation for the tap the pattern uses.
+
+    With a unit current into the tap (other taps open) the input power is ½ Re Z_ii and the
+    radiated power the integral of the open-port far field; over a lossy ground or with lossy wire
+    the ratio (radiation efficiency) lies in (0, 1]. A negative input resistance (NEC's numerical
+    noise for small loops near real ground) or a ratio above 1 + :data:`POWER_EXCESS` is refused.
+
+    Returns the ratio. Raises :class:`~simloop.errors.SolverError` with the reason.
+    """
+    from simloop.errors import SolverError
+
+    r_in = float(grid.z_ohm[tap, tap].real)
+    p_rad = radiated_power_w(grid.e_theta_v[tap], grid.e_phi_v[tap], grid.theta_deg, grid.phi_deg)
+    if not r_in > 0:
+        raise SolverError(f"{where}: the MoM input resistance of the tap is {r_in:.3g} Ω (≤ 0): the solve is "
+                          "numerical noise here (small loops near real ground do this); no pattern is reported. "
+                          "Raise the loop, or model free space or perfect ground")
+    ratio = p_rad / (0.5 * r_in)
+    if ratio > 1 + POWER_EXCESS:
+        raise SolverError(f"{where}: radiated power is {ratio:.3g} × the input power (energy is not conserved): "
+                          "the solve is not trusted; no pattern is reported")
+    return ratio
+
+
+#: Azimuth step of the MoM's far-field rows (180 azimuths per elevation). [deg]
+ROW_STEP_DEG = 2.0
+#: Grid step of the sphere (free space) or upper half space (ground) used for the power check
+#: and the dipole fit; 90/step must be even. [deg]
+GRID_STEP_DEG = 5.0
+
+
+def pattern_plan(mesh, env, frequency_hz: float, elevation_deg):
+    """The solve plan of a pattern: the port excitations, their currents, one far-field row per
+    elevation and a coarse sphere (or upper half space over a ground) — one factorisation."""
+    from simloop.solve import FarField, PortCurrents, PortSources, SolvePlan
+
+    thetas = sorted({round(90.0 - float(e), 9) for e in elevation_deg})
+    n_phi = int(round(360.0 / ROW_STEP_DEG))
+    rows = tuple(FarField(t, 0.0, 1, 0.0, ROW_STEP_DEG, n_phi, name=f"row{i}") for i, t in enumerate(thetas))
+    n_theta = int(round((180.0 if env.ground == "free-space" else 90.0) / GRID_STEP_DEG)) + 1
+    grid = FarField(0.0, GRID_STEP_DEG, n_theta, 0.0, GRID_STEP_DEG, int(round(360.0 / GRID_STEP_DEG)), name="grid")
+    plan = SolvePlan(mesh, env, float(frequency_hz), (PortSources(),), (PortCurrents(), *rows, grid))
+    return plan, rows, grid
+
+
+def _rows_field(result, rows) -> PortFarField:
+    from simloop.solve import FarFieldSolution
+
+    ff = np.concatenate([result.get(0, r.name) for r in rows], axis=-1)  # (k, 2, nφ, rows)
+    return PortFarField(FarFieldSolution(result.frequency_hz, result.get(0, "port_currents").T,
+                                         np.array([r.theta_start_deg for r in rows]), rows[0].phi_deg,
+                                         ff[:, 0], ff[:, 1], result.seconds, result.cached))
+
+
 def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress=None,
-                rod_voltage=None) -> PatternResult:
+                rod_voltage=None, executor=None) -> PatternResult:
     """The pattern study of a spec: one MoM factorisation at the ``[pattern]`` frequency.
 
     Parameters
     ----------
     spec : simloop.spec.Spec
         ``[pattern]`` (frequency, elevations, polarisation; defaults when absent), ``[tuner]``,
-        ``[receiver]`` (optional: the rod).
+        ``[receiver]`` (optional: the rod), ``[ground]``.
     sweep : simloop.impedance.SweepResult
         The same spec's sweep (mesh, environment and the tap impedance model).
-    workers, cache, progress
-        As for :func:`simloop.solve.solve_far_field`; ``progress(stage, done, total)``.
+    workers, cache, progress, executor
+        As for :func:`simloop.solve.solve_plans`; ``progress(stage, done, total)``.
     rod_voltage : callable, optional
         A receiver model's rod voltage, see :func:`pattern_from_far_field`.
 
     Raises
     ------
     SolverError
-        When the MoM solve fails, or for a ground other than free space (not yet supported by
-        the far-field solve).
+        When the MoM solve fails or fails the power check (:func:`power_check`).
     """
     from simloop.errors import SolverError
-    from simloop.solve import solve_far_field
+    from simloop.solve import far_field_solution, solve_plans
     from simloop.spec import PatternSpec
     from simloop.tuner import tuner_from_spec
 
     ps = spec.pattern or PatternSpec()
-    if sweep.environment.ground != "free-space":
-        raise SolverError(f"patterns over {sweep.environment.ground} ground are not available yet: "
-                          "the far-field solve serves free space only")
+    env = sweep.environment
+    plan, rows, grid = pattern_plan(sweep.mesh, env, ps.frequency_hz, ps.elevation_deg)
     cb = (lambda d, t: progress("pattern", d, t)) if progress else None
-    (ff,) = solve_far_field(sweep.mesh, sweep.environment, [ps.frequency_hz], step_deg=FAR_FIELD_STEP_DEG,
-                            workers=workers, cache=cache, progress=cb)
-    if isinstance(ff, SolverError):
-        raise ff
-    return pattern_from_far_field(ff, sweep, tuner_from_spec(spec.tuner), elevation_deg=ps.elevation_deg,
-                                  polarization=ps.polarization, receiver=spec.receiver,
-                                  rod_voltage=rod_voltage, floor_hz=sweep.mesh.floor_frequency_hz())
+    (res,) = solve_plans([plan], executor=executor, workers=workers, cache=cache, progress=cb)
+    if isinstance(res, SolverError):
+        raise res
+    tuner = tuner_from_spec(spec.tuner)
+    sphere = PortFarField(far_field_solution(res, grid))
+    tap, _, _ = tuned_tap(sweep, tuner, ps.frequency_hz)
+    efficiency = power_check(sphere, tap, f"{ps.frequency_hz / 1e6:.6g} MHz over {env.ground}")
+    moments = sphere.fit_dipole_moments() if env.ground == "free-space" else None
+    notes = [f"efficiency:{efficiency:.3g}"] + ([] if moments is not None else [f"ground:{env.ground}"])
+    return pattern_from_far_field(_rows_field(res, rows), sweep, tuner, moments=moments,
+                                  elevation_deg=ps.elevation_deg, polarization=ps.polarization,
+                                  receiver=spec.receiver, rod_voltage=rod_voltage,
+                                  floor_hz=sweep.mesh.floor_frequency_hz(), notes=notes)
