@@ -166,9 +166,12 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
 
 
 def cmd_pattern(args, spec=None, sweep=None) -> int:
-    from simloop.pattern import run_pattern
+    from simloop.pattern import check_pattern_inputs, run_pattern
     from simloop.report_pattern import format_pattern_summary, write_pattern
+    from simloop.spec import load
 
+    spec = spec or load(args.spec)
+    check_pattern_inputs(spec)  # before the sweep's long work
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     progress = _Progress(args.quiet)
     try:

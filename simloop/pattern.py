@@ -347,6 +347,42 @@ class PortFarField:
         return m_out, p_out, resid
 
 
+class DipoleField:
+    """The receive response of paths given by their dipole moments, with the interface of
+    :class:`PortFarField` (``frequency_hz``, ``ports``, ``voltage``).
+
+    Below NEC's breakdown floor the circuit solver's ``CircuitModel.solve(f).dipole_moments()``
+    (m, p per unit port current, other ports open) gives the loop's response here: pass the
+    result to :func:`pattern_from_far_field` with ``moments=field.moments`` and
+    ``model="circuit"``.
+
+    Parameters
+    ----------
+    m : array_like, shape (k, 3), complex  [A·m² per A]
+    p : array_like, shape (k, 3), complex  [C·m per A]
+    frequency_hz : float  [Hz]
+    """
+
+    def __init__(self, m, p, frequency_hz: float):
+        self.m = np.atleast_2d(np.asarray(m, dtype=complex))
+        self.p = np.atleast_2d(np.asarray(p, dtype=complex))
+        self.frequency_hz = float(frequency_hz)
+
+    @property
+    def ports(self) -> int:
+        return self.m.shape[0]
+
+    @property
+    def moments(self):
+        """(m, p, residual): the split of :func:`null_cause` (nothing lies beyond the dipoles)."""
+        return self.m, self.p, np.zeros(self.ports)
+
+    def voltage(self, azimuth_deg, elevation_deg, polarization="vertical"):
+        """Open-circuit voltage of every port for a 1 V/m wave, shape (k, n). [m]"""
+        az = np.atleast_1d(np.asarray(azimuth_deg, dtype=float))
+        return dipole_response(self.m, self.p, self.frequency_hz, az, elevation_deg, polarization)
+
+
 def directivity(e_theta_v, e_phi_v, theta_deg, phi_deg) -> float:
     r"""Directivity from a full-sphere pattern: 4π max|E|² / ∮|E|² dΩ. [-]"""
     from simloop.validation import sphere_weights
@@ -613,7 +649,8 @@ def _nulls_of(resp: _Response, azimuth_deg, elevation_deg, reference: float) -> 
 
 def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, elevation_deg=(0.0,),
                            polarization="vertical", receiver=None, rod_voltage=None, floor_hz: float = 0.0,
-                           azimuth_step_deg: float = AZIMUTH_STEP_DEG, notes=()) -> PatternResult:
+                           azimuth_step_deg: float = AZIMUTH_STEP_DEG, notes=(),
+                           model: str | None = None) -> PatternResult:
     """Loop and rod patterns, with their nulls, from a solved MoM far field.
 
     Parameters
@@ -637,13 +674,18 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
         NEC's breakdown floor of the mesh: below it the loop pattern is flagged. [Hz]
     azimuth_step_deg : float
         Coarse grid step. [deg]
+    notes : sequence of str
+        Note codes to carry into the result.
+    model : str, optional
+        Where the loop response came from (default ``"mom"``, or ``"mom-below-floor"`` below
+        ``floor_hz``); ``"circuit"`` for a :class:`DipoleField` of the circuit solver.
     """
     f = pff.frequency_hz
     tap, cap, zii = tuned_tap(sweep, tuner, f)
     factor = capacitor_divider(zii, cap, tuner.q, f)
     az = np.arange(0.0, 360.0, azimuth_step_deg)
     els = np.asarray(elevation_deg, dtype=float)
-    loop_model = "mom" if f >= floor_hz else "mom-below-floor"
+    loop_model = model or ("mom" if f >= floor_hz else "mom-below-floor")
     if moments is not None:
         m, p, resid = moments
         at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)
@@ -665,7 +707,7 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
         ref = float(np.max(np.abs(r.values)))
         response_db[r.name] = _db(r.values, ref)
         nulls += _nulls_of(r, az, els, ref)
-    notes = list(notes) + _pattern_notes(f, floor_hz, els, polarization, resid[tap])
+    notes = list(notes) + _pattern_notes(f, floor_hz, els, polarization, model)
     return PatternResult(
         frequency_hz=f, azimuth_deg=az, elevation_deg=els,
         polarization=polarization if isinstance(polarization, str) else str(polarization),
@@ -676,9 +718,9 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
         floor_hz=float(floor_hz), notes=tuple(notes))
 
 
-def _pattern_notes(f: float, floor_hz: float, els, polarization, residual: float) -> list[str]:
+def _pattern_notes(f: float, floor_hz: float, els, polarization, model) -> list[str]:
     notes = []
-    if f < floor_hz:
+    if f < floor_hz and model is None:
         notes.append(f"below-floor:{floor_hz:.6g}")
     if polarization == "horizontal" and np.any(els == 0.0):
         notes.append("horizontal-at-horizon")
@@ -762,6 +804,24 @@ def _rows_field(result, rows) -> PortFarField:
                                          ff[:, 0], ff[:, 1], result.seconds, result.cached))
 
 
+def check_pattern_inputs(spec) -> None:
+    """Refuse pattern inputs that cannot give an answer, before any solve.
+
+    Over real ground the space wave vanishes at the horizon (the reflection coefficient of either
+    polarisation tends to −1 at grazing incidence) and NEC's far field carries no ground wave, so
+    a pattern at 0° elevation would be the ratio of two zeros.
+    """
+    from simloop.errors import SpecError
+    from simloop.spec import PatternSpec
+
+    ps = spec.pattern or PatternSpec()
+    if spec.ground.kind == "real" and any(float(e) <= 0.0 for e in ps.elevation_deg):
+        where = "" if spec.pattern is not None else " (the default when [pattern] is absent)"
+        raise SpecError("pattern.elevation", f'"0 deg"{where} over real ground: the space wave vanishes at '
+                        "grazing incidence and the far field has no ground wave; give elevations of 1° or more, "
+                        'e.g. elevation = ["2 deg", "30 deg"]')
+
+
 def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress=None,
                 rod_voltage=None, executor=None) -> PatternResult:
     """The pattern study of a spec: one MoM factorisation at the ``[pattern]`` frequency.
@@ -788,6 +848,7 @@ def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress
     from simloop.spec import PatternSpec
     from simloop.tuner import tuner_from_spec
 
+    check_pattern_inputs(spec)
     ps = spec.pattern or PatternSpec()
     env = sweep.environment
     plan, rows, grid = pattern_plan(sweep.mesh, env, ps.frequency_hz, ps.elevation_deg)

@@ -26,6 +26,7 @@ MODELS = {
     "mom": "NEC (method of moments)",
     "mom-below-floor": "NEC below its breakdown floor: currents, and so null depths, suspect",
     "dipole": "the rod as a small magnetic dipole (analytic)",
+    "circuit": "the circuit solver's dipole moments (quasi-static, no breakdown floor)",
 }
 
 
