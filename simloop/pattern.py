@@ -777,8 +777,8 @@ def power_check(grid: PortFarField, tap: int, where: str) -> float:
 #: Azimuth step of the MoM's far-field rows (180 azimuths per elevation). [deg]
 ROW_STEP_DEG = 2.0
 #: Grid step of the sphere (free space) or upper half space (ground) used for the power check
-#: and the dipole fit; 90/step must be even. [deg]
-GRID_STEP_DEG = 5.0
+#: and the dipole fit; 90/step must be even (Simpson). [deg]
+GRID_STEP_DEG = 7.5
 
 
 def pattern_plan(mesh, env, frequency_hz: float, elevation_deg):
