@@ -615,7 +615,8 @@ class _Response:
     parts: tuple | None = None  # (magnetic, electric) evaluators for the cause split
 
 
-def _loop_response(pff: PortFarField, tap: int, factor: complex, m, p, model: str, polarization) -> Callable:
+def _loop_response(pff, tap: int, factor: complex, m, p, polarization):
+    """The loop's response at (azimuth array, elevation), and its magnetic and electric parts."""
     f = pff.frequency_hz
 
     def at(az, el):
@@ -688,11 +689,11 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
     loop_model = model or ("mom" if f >= floor_hz else "mom-below-floor")
     if moments is not None:
         m, p, resid = moments
-        at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)
+        at, parts = _loop_response(pff, tap, factor, m, p, polarization)
     else:
         nan = np.full((pff.ports, 3), np.nan + 0j)
         m, p, resid = nan, nan, np.full(pff.ports, np.nan)
-        at, parts = _loop_response(pff, tap, factor, m, p, loop_model, polarization)[0], None
+        at, parts = _loop_response(pff, tap, factor, m, p, polarization)[0], None
     responses = [_Response("loop", np.array([at(az, e) for e in els]), at, loop_model, parts)]
     if receiver is not None:
         rod_model = "dipole" if rod_voltage is None else getattr(rod_voltage, "model_name", "receiver")
