@@ -454,6 +454,10 @@ class PlaneWaves:
         return {"kind": self.kind, "theta_deg": [float(t) for t in self.theta_deg],
                 "phi_deg": [float(p) for p in self.phi_deg], "eta_deg": float(self.eta_deg)}
 
+    @classmethod
+    def from_descriptor(cls, d: dict) -> "PlaneWaves":
+        return cls(tuple(d["theta_deg"]), tuple(d["phi_deg"]), d["eta_deg"])
+
     def count(self, mesh: dict) -> int:
         return len(self.theta_deg)
 
@@ -537,6 +541,11 @@ class FarField:
         return cls(0.0, step_deg, int(round(180.0 / step_deg)) + 1, 0.0, step_deg,
                    int(round(360.0 / step_deg)), name)
 
+    @classmethod
+    def from_descriptor(cls, d: dict) -> "FarField":
+        (t0, dt, nt), (p0, dp, n_phi) = d["theta"], d["phi"]
+        return cls(t0, dt, nt, p0, dp, n_phi, **({"name": d["name"]} if "name" in d else {}))
+
     @property
     def theta_deg(self) -> np.ndarray:
         return self.theta_start_deg + self.theta_step_deg * np.arange(self.n_theta)
@@ -582,6 +591,10 @@ class NearFieldH:
     name: str = "near_field_h"
     kind: ClassVar[str] = "near_field_h"
 
+    @classmethod
+    def from_descriptor(cls, d: dict) -> "NearFieldH":
+        return cls(tuple(tuple(p) for p in d["points_m"]), **({"name": d["name"]} if "name" in d else {}))
+
     def descriptor(self) -> dict:
         return {"kind": self.kind, "points_m": [[float(c) for c in p] for p in self.points_m]}
 
@@ -612,14 +625,7 @@ def _decode_kind(registry: dict, d: dict):
     """The excitation or observation a descriptor (plus name) stands for."""
     cls = registry[d["kind"]]
     args = {k: v for k, v in d.items() if k != "kind"}
-    if cls is FarField:
-        (t0, dt, nt), (p0, dp, npf) = args.pop("theta"), args.pop("phi")
-        return FarField(t0, dt, nt, p0, dp, npf, **args)
-    if cls is PlaneWaves:
-        return PlaneWaves(tuple(args["theta_deg"]), tuple(args["phi_deg"]), args["eta_deg"])
-    if cls is NearFieldH:
-        return NearFieldH(tuple(tuple(p) for p in args["points_m"]), **{k: v for k, v in args.items() if k != "points_m"})
-    return cls(**args)
+    return cls.from_descriptor(args) if hasattr(cls, "from_descriptor") else cls(**args)
 
 
 def _solve_plan(mesh: dict, env: dict, frequency_hz: float, excitations: list, observations: list) -> dict:
