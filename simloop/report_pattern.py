@@ -111,7 +111,7 @@ def plot_pattern(result: PatternResult, path: Path) -> Path:
     from matplotlib.figure import Figure
 
     n = result.elevation_deg.size
-    fig = Figure(figsize=(5.2 * n, 5.8), constrained_layout=True)
+    fig = Figure(figsize=(max(5.2 * n, 6.5), 6.0), constrained_layout=True)
     FigureCanvasAgg(fig)
     phi = np.radians(np.append(result.azimuth_deg, result.azimuth_deg[0] + 360.0))
     span = -PLOT_FLOOR_DB
@@ -133,7 +133,7 @@ def plot_pattern(result: PatternResult, path: Path) -> Path:
         if i == 0:
             ax.legend(loc="lower left", bbox_to_anchor=(-0.1, -0.16), fontsize=7, frameon=False)
     fig.suptitle(f"Receive pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
-                 f"tap {result.tap_turns} (each response relative to its own maximum)", fontsize=10)
+                 f"tap {result.tap_turns}\neach response relative to its own maximum", fontsize=10)
     fig.savefig(path, dpi=110)
     return path
 
