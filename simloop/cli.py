@@ -1,20 +1,27 @@
 """Command line: parse, load, call, write. No mathematics here.
 
 Exit status: 0 done, 2 bad input (the message names the key), 1 anything else (a message, no
-traceback unless --debug).
+traceback unless --debug), including a sweep in which any MoM solve failed (unless --keep-going);
+130 interrupted (Ctrl-C), 143 terminated (SIGTERM), 141 output pipe closed.
 """
 
 from __future__ import annotations
 
 import argparse
+import codecs
+import contextlib
+import math
 import os
+import signal
 import sys
+import threading
 import time
 import traceback
+import warnings
 from importlib import resources
 from pathlib import Path
 
-from simloop.errors import SimloopError, SpecError
+from simloop.errors import CacheWarning, SimloopError, SpecError
 
 DEMO_SPEC = "demo-loop.toml"
 
@@ -58,12 +65,39 @@ def _cache(args):
 
     if args.no_cache:
         return None
-    root = os.environ.get("SIMLOOP_CACHE") or str(Path("results") / ".cache")
-    return SolveCache(root)
+    env = os.environ.get("SIMLOOP_CACHE")
+    root = Path(env) if env else Path("results") / ".cache"
+    if root.exists() and not root.is_dir():
+        key = "SIMLOOP_CACHE" if env else "results/.cache"
+        raise SpecError(key, f"{str(root)!r} is a file, not a folder; point SIMLOOP_CACHE at a folder "
+                             f"or pass --no-cache")
+    cache = SolveCache(root)
+    args.cache_in_use = cache
+    return cache
 
 
 def _out_dir(args, spec) -> Path:
-    return Path(args.out) if args.out else Path("results") / spec.name
+    from simloop.report import check_out_dir
+
+    return check_out_dir(args.out if args.out is not None else Path("results") / spec.name)
+
+
+def _solve_failures(args, sweep) -> int:
+    """Report failed MoM solves on stderr; exit status 1 for them unless --keep-going."""
+    if not sweep.failures:
+        return 0
+    print(f"simloop: {len(sweep.failures)} MoM solve(s) failed; the sweep points they should have "
+          f"backed are marked unreliable (error estimate 1) and listed under 'failures' in sweep.json:",
+          file=sys.stderr)
+    for f in sweep.failures:
+        print(f"  {f.role} solve at {f.reason}", file=sys.stderr)
+    if getattr(args, "keep_going", False):
+        print("simloop: --keep-going: finished with the failures recorded", file=sys.stderr)
+        return 0
+    cache = getattr(args, "cache_in_use", None)
+    kept = " (the solves that finished are cached)" if cache is not None and cache.writable else ""
+    print(f"simloop: rerun to retry them{kept}, or pass --keep-going to accept", file=sys.stderr)
+    return 1
 
 
 def cmd_check(args) -> int:
@@ -108,12 +142,14 @@ def _spec_out_sweep(args, spec, sweep):
     from simloop.spec import load
 
     spec = spec or load(args.spec)
-    return spec, _out_dir(args, spec), sweep or _run_sweep(args, spec)
+    out = _out_dir(args, spec)  # checked before the first solve
+    return spec, out, sweep or _run_sweep(args, spec)
 
 
 def cmd_sweep(args, spec=None, sweep=None) -> int:
     from simloop.report import write_sweep
 
+    given = sweep is not None
     spec, out, result = _spec_out_sweep(args, spec, sweep)
     paths = write_sweep(result, out, z0=args.z0)
     if not args.quiet:
@@ -131,26 +167,33 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
         if result.window_note:
             print(f"note: {result.window_note}")
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, result)
 
 
 def cmd_tune(args, spec=None, sweep=None) -> int:
     from simloop.report_tune import format_tune_summary, write_tune
     from simloop.tuning import run_tune
 
+    from simloop.report import output_set
+
+    given = sweep is not None
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     result = run_tune(spec, sweep, band=args.band, field_v_per_m=args.field)
-    paths = write_tune(result, out)
+    with output_set(out, "tune", {"name": spec.name}) as (stage, paths):
+        write_tune(result, stage)
     if not args.quiet:
         print(format_tune_summary(result))
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, sweep)
 
 
 def cmd_validate(args, spec=None, sweep=None) -> int:
     from simloop.report_validate import format_validate_table, write_validate
     from simloop.validation import run_validate
 
+    from simloop.report import output_set
+
+    given = sweep is not None
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     progress = _Progress(args.quiet)
     try:
@@ -158,11 +201,12 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
                               convergence=not args.no_convergence)
     finally:
         progress.close()
-    paths = write_validate(result, out)
+    with output_set(out, "validate", {"name": spec.name}) as (stage, paths):
+        write_validate(result, stage)
     if not args.quiet:
         print(format_validate_table(result))
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, sweep)
 
 
 def cmd_pattern(args, spec=None, sweep=None) -> int:
@@ -191,12 +235,15 @@ def cmd_demo(args) -> int:
 
     text = resources.files("simloop").joinpath("data", DEMO_SPEC).read_text()
     spec = loads(text, source=DEMO_SPEC)
-    args.out = args.out or str(Path("results") / "demo")
+    if args.out is None:
+        args.out = str(Path("results") / "demo")
     args.band, args.field, args.no_convergence = "itu-1", 1e-3, False
+    _out_dir(args, spec)  # checked before the first solve
     sweep = _run_sweep(args, spec)
     cmd_sweep(args, spec=spec, sweep=sweep)
     cmd_tune(args, spec=spec, sweep=sweep)
-    return cmd_validate(args, spec=spec, sweep=sweep)
+    cmd_validate(args, spec=spec, sweep=sweep)
+    return _solve_failures(args, sweep)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -215,6 +262,8 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--z0", type=float, default=50.0, help="Touchstone reference impedance [Ω]")
         p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
         p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+        p.add_argument("--keep-going", action="store_true",
+                       help="exit 0 although some MoM solves failed (they are still recorded and reported)")
 
     p = sub.add_parser("check", parents=[debug], help="build the mesh and print the mesh report")
     p.add_argument("spec")
@@ -245,34 +294,99 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised in the main thread so that every worker is stopped on the way out."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated
+
+
+_FALLBACK = {"µ": "u", "Ω": "Ohm", "λ": "lambda", "×": "x", "–": "-", "—": "-", "±": "+/-", "≥": ">=",
+             "≤": "<=", "→": "->", "≈": "~", "κ": "kappa", "π": "pi", "…": "...", "·": "*", "²": "^2",
+             "³": "^3", "⁴": "^4", "⁻": "^-", "¹": "1", "ε": "eps", "Δ": "d", "θ": "theta", "φ": "phi"}
+
+
+def _transliterate(exc):
+    """Codec error handler: spell the symbols we print in ASCII when the terminal cannot show them."""
+    text = exc.object[exc.start:exc.end]
+    return "".join(_FALLBACK.get(c, "?") for c in text), exc.end
+
+
+codecs.register_error("simloop-ascii", _transliterate)
+
+
+def _setup_streams() -> None:
+    for stream in (sys.stdout, sys.stderr):
+        if hasattr(stream, "reconfigure"):
+            stream.reconfigure(errors="simloop-ascii")
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"simloop: warning: {message}", file=sys.stderr)
+
+
+def _report(args, text: str, status: int) -> int:
+    print(text, file=sys.stderr)
+    if getattr(args, "debug", False):
+        traceback.print_exc()
+    return status
+
+
+def _check_options(args) -> None:
+    z0 = getattr(args, "z0", 50.0)
+    if not (math.isfinite(z0) and z0 > 0):
+        raise SpecError("--z0", f"{z0} must be a finite number > 0 (reference impedance in ohms)")
+    if getattr(args, "workers", None) is not None and args.workers < 1:
+        raise SpecError("--workers", f"{args.workers} must be ≥ 1")
+
+
+def _interrupted(args) -> str:
+    cache = getattr(args, "cache_in_use", None)
+    kept = (f"every finished solve is kept in the cache ({cache.root})" if cache is not None and cache.writable
+            else "no usable cache: the solves of this run are lost")
+    return f"simloop: interrupted; {kept}"
+
+
 def main(argv=None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    _setup_streams()
+    in_main = threading.current_thread() is threading.main_thread()
+    old_term = signal.signal(signal.SIGTERM, _on_sigterm) if in_main else None
+    args = argparse.Namespace(debug=False)
+    with warnings.catch_warnings():  # restores the filters and showwarning on the way out
+        warnings.simplefilter("always", CacheWarning)  # a cache problem is said, and the run goes on
+        warnings.showwarning = _show_warning
+        try:
+            return _run(argv, args)
+        finally:
+            if old_term is not None:
+                signal.signal(signal.SIGTERM, old_term)
+
+
+def _run(argv, args) -> int:
+    """Parse and run one command; every outcome becomes an exit status (see the module docstring)."""
     try:
-        if getattr(args, "z0", 50.0) <= 0:
-            raise SpecError("--z0", f"{args.z0} must be > 0 (reference impedance in ohms)")
-        if getattr(args, "workers", None) is not None and args.workers < 1:
-            raise SpecError("--workers", f"{args.workers} must be ≥ 1")
-        return args.func(args)
+        args = build_parser().parse_args(argv)
+        _check_options(args)
+        status = args.func(args)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handlers, not at interpreter exit
+        return status
     except SpecError as exc:
-        print(f"simloop: bad input\n{exc}", file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 2
+        return _report(args, f"simloop: bad input\n{exc}", 2)
     except SimloopError as exc:
-        print(f"simloop: {exc}", file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 1
+        return _report(args, f"simloop: {exc}", 1)
     except KeyboardInterrupt:
-        print("simloop: interrupted; solved frequencies are kept in the cache", file=sys.stderr)
-        return 130
+        return _report(args, _interrupted(args), 130)
+    except _Terminated:
+        return _report(args, _interrupted(args).replace("interrupted", "terminated (SIGTERM)"), 143)
+    except BrokenPipeError:
+        # the reader went away (``simloop check spec | head -1``): nothing left to say to it
+        with contextlib.suppress(OSError, ValueError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
     except Exception as exc:  # noqa: BLE001 - the CLI promises no traceback without --debug
-        print(f"simloop: unexpected error: {type(exc).__name__}: {exc} (run with --debug for details)",
-              file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 1
+        return _report(args, f"simloop: unexpected error: {type(exc).__name__}: {exc} "
+                             f"(run with --debug for details)", 1)
 
 
 if __name__ == "__main__":

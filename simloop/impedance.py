@@ -111,6 +111,15 @@ class SolveRecord:
 
 
 @dataclass(frozen=True)
+class SolveFailure:
+    """One MoM solve the sweep asked for and did not get (worker crashed, hung, returned NaN)."""
+
+    frequency_hz: float
+    role: str  # "probe", "window" or "direct"
+    reason: str
+
+
+@dataclass(frozen=True)
 class SweepResult:
     """Impedance of every tap over the sweep, with provenance and error estimates.
 
@@ -136,6 +145,9 @@ class SweepResult:
         κ applied to each tap (impedances scale as √(κ_i κ_j)); 1 where none was needed. [-]
     uncorrected_inductance_h : ndarray, shape (k,)
         L0 of the MoM model before the junction correction. [H]
+    failures : tuple of SolveFailure
+        Solves that failed. A sweep point whose direct solve failed carries the model value with
+        error estimate 1 and is never reliable.
     """
 
     name: str
@@ -157,6 +169,7 @@ class SweepResult:
     solves: tuple[SolveRecord, ...] = ()
     window_note: str = ""
     environment: Environment = field(default_factory=Environment)
+    failures: tuple[SolveFailure, ...] = ()
 
     @property
     def inductance_h(self) -> np.ndarray:
@@ -301,6 +314,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     resistivity = env.resistivity_ohm_m
     solved: dict[float, PortSolution] = {}
     records: list[SolveRecord] = []
+    failed: list[SolveFailure] = []
 
     def solve(freqs, role):
         freqs = _unique(freqs, solved)
@@ -312,6 +326,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         for f, res in zip(freqs, out):
             if isinstance(res, SolverError):
                 failures[f] = res
+                failed.append(SolveFailure(f, role, str(res)))
                 continue
             solved[f] = res
             records.append(SolveRecord(f, role, res.seconds, res.cached, res.asymmetry,
@@ -373,7 +388,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     # 3. Direct MoM above the floor.
     f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)
     floor = 0.0 if direct else f7
-    solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
+    lost = solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
 
     # 4. Junction correction: each tap's own circuit, without the open wires hanging from it.
     k = len(geom.tap_turns)
@@ -411,6 +426,8 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
             source[m] = "model"
             base = eps_l
         eps[m] = np.minimum(base * amplify[m], 1.0)
+        if any(abs(g - f) <= 1e-9 * f for g in lost):  # its direct solve failed: no backing
+            eps[m] = 1.0
     if worst_asymmetry > ASYMMETRY_LIMIT:
         eps[:] = 1.0
         note = (note + "; " if note else "") + (
@@ -437,4 +454,5 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         solves=tuple(sorted(records, key=lambda r: r.frequency_hz)),
         window_note=note,
         environment=env,
+        failures=tuple(sorted(failed, key=lambda r: r.frequency_hz)),
     )

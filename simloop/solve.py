@@ -218,7 +218,7 @@ def _worker(conn, function: str, *args):
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
     _die_with_parent()
     signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT, signal.SIGTERM})
-    if os.getppid() == 1:  # the parent died before the death signal was armed
+    if os.getppid() != _PARENT_PID:  # the parent died before the death signal was armed
         os._exit(1)
     faulthandler.disable()  # a crash of nec2++ is reported by the parent, not dumped by the child
     os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -1084,10 +1084,13 @@ def solve_many(requests, *, workers: int | None = None, timeout_s: float | None 
 
 
 _BLOCKED = {signal.SIGINT, signal.SIGTERM}
+_PARENT_PID = os.getpid()  # set again before every fork: the worker compares it with its getppid()
 
 
 def _start(ctx, job):
     """Fork one worker with SIGINT and SIGTERM blocked (the worker sets up its own handling)."""
+    global _PARENT_PID
+    _PARENT_PID = os.getpid()
     reader, writer = ctx.Pipe(duplex=False)
     proc = ctx.Process(target=_worker, args=(writer, *job), daemon=True)
     main = threading.current_thread() is threading.main_thread()

@@ -843,6 +843,60 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     return p
 
 
+# --- Stage 3: size (estimated from the numbers, before any geometry is built) ------------------
+
+def _bare(w: _W) -> bool:
+    """True when the user wrote a bare number (read as the SI unit) rather than a quantity string."""
+    return not w.text.startswith(('"', "'", "the default"))
+
+
+def _size_problems(m: _SpecIn, wire: WireSpec) -> list[tuple[str, str]]:
+    """Refuse a spec whose mesh would exceed :data:`simloop.mesh.MAX_SEGMENTS`, naming the keys
+    that drive the count, with a units hint for lengths written as bare numbers (metres)."""
+    from simloop.mesh import MAX_SEGMENTS, solve_cost, estimate_segments
+
+    fr, wd, ms = m.frame, m.winding, m.mesh
+    smallest = 6 * 2 * wire.radius_m  # a side must hold segments of at least two wire radii
+    for key, w in (("frame.width", fr.width), ("frame.height", fr.height)):
+        if not w.value >= smallest:
+            return [(key, f"{w.text} is too small to mesh: a side must be at least six wire diameters "
+                          f"({smallest * 1e3:.3g} mm) long{_units_hint(key, w)}")]
+    seg = ms.segment_length
+    n, limit = estimate_segments(fr.width.value, fr.height.value, wd.turns, wd.pitch.value, wd.style,
+                                 ms.quality, m.sweep.stop.value, seg.value if seg is not None else None)
+    if n <= MAX_SEGMENTS:
+        return []
+    drivers = [("frame.width", fr.width), ("frame.height", fr.height)]
+    by = {"segment_length": [("mesh.segment_length", seg)],
+          "turn": [("mesh.quality", _W(0, f'"{ms.quality}"'))],
+          "pitch": [("winding.pitch", wd.pitch), ("mesh.quality", _W(0, f'"{ms.quality}"'))],
+          "wavelength": [("sweep.stop", m.sweep.stop)]}[limit]
+    turns = str(wd.turns) if len(str(wd.turns)) <= 12 else f"a {len(str(wd.turns))}-digit number"
+    drivers = [("winding.turns", _W(0, turns))] + drivers + by
+    if math.isfinite(n) and n < 1e12:
+        seconds, memory_b = solve_cost(n)
+        size = (f"at least {n:,.0f} segments, more than the {MAX_SEGMENTS} this tool solves (about "
+                f"{memory_b / 1e9:.3g} GB and {seconds / 3600:.3g} h per frequency)")
+    else:
+        size = f"more segments than any computer can solve (this tool solves at most {MAX_SEGMENTS})"
+    message = (f"the mesh would have {size}; the size comes from {', '.join(f'{k} = {w.text}' for k, w in drivers)}: fewer turns, a "
+               f"smaller frame or a coarser mesh make it smaller")
+    bare = [(k, w) for k, w in drivers if k not in ("winding.turns", "mesh.quality") and _bare(w)]
+    message += "".join(_units_hint(k, w) for k, w in bare)
+    key = bare[0][0] if bare else "winding.turns"
+    return [(key, message)]
+
+
+def _units_hint(key: str, w: _W) -> str:
+    if not _bare(w):
+        return ""
+    unit = "Hz" if key == "sweep.stop" else "m"
+    return (f". Note: {key} = {w.text} is a bare number, read in the SI unit as {w.text} {unit}; "
+            f"write the unit if you meant another (\"{w.text} cm\", \"{w.text} in\", \"{w.text} mm\")"
+            if unit == "m" else
+            f". Note: {key} = {w.text} is a bare number, read as {w.text} Hz; write \"{w.text} kHz\" if meant")
+
+
 # --- Building the result -------------------------------------------------------------------------
 
 def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: TunerSpec | None,
@@ -851,7 +905,8 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
     if m.receiver is not None:
         r = m.receiver
         ax = np.array([c.value for c in r.axis])
-        ax = ax / np.linalg.norm(ax)
+        ax = ax / np.max(np.abs(ax))  # scaled first: the norm of [1e-320, 0, 0] or [1e308, 1e308, 0]
+        ax = ax / np.linalg.norm(ax)  # under- or overflows, and a NaN axis would pass every check
         receiver = ReceiverSpec(
             rod_length_m=r.rod_length.value, rod_diameter_m=r.rod_diameter.value,
             permeability=r.permeability.value, coil_turns=r.coil_turns,
@@ -904,6 +959,9 @@ def _parse(text: str, source: str, path: Path | None) -> Spec:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise _toml_error(err, text, source) from None
+    except RecursionError:
+        raise SpecError(source, "TOML nested too deeply (arrays or tables inside each other "
+                                "thousands of levels deep); a spec needs at most three levels") from None
 
     # Stage 1: structure.
     try:
@@ -928,6 +986,9 @@ def _parse(text: str, source: str, path: Path | None) -> Spec:
     assert wire_and_text is not None and ground is not None
     wire, wire_text = wire_and_text
     problems = ([name_problem] if name_problem else []) + _physics(model, wire, wire_text)
+    if problems:
+        raise SpecError(problems[0][0], problems[0][1], problems)
+    problems = _size_problems(model, wire)  # before anything is built: see simloop.mesh.MAX_SEGMENTS
     if problems:
         raise SpecError(problems[0][0], problems[0][1], problems)
     assert name is not None
