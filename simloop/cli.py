@@ -306,6 +306,30 @@ def cmd_couple(args, spec=None, sweep=None) -> int:
     return 0 if given else _solve_failures(args, sweep)
 
 
+def cmd_pattern(args, spec=None, sweep=None) -> int:
+    """Receive patterns of the loop (and the radio's rod), their nulls and what fills them."""
+    from simloop.pattern import check_pattern_inputs, run_pattern
+    from simloop.report import output_set
+    from simloop.report_pattern import format_pattern_summary, write_pattern
+    from simloop.spec import load
+
+    given = sweep is not None
+    spec = spec or load(args.spec)
+    check_pattern_inputs(spec)  # before the sweep's long work
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    progress = _Progress(args.quiet)
+    try:
+        result = run_pattern(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress)
+    finally:
+        progress.close()
+    with output_set(out, "pattern", {"name": spec.name}) as (stage, paths):
+        write_pattern(result, stage)
+    if not args.quiet:
+        print(format_pattern_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0 if given else _solve_failures(args, sweep)
+
+
 def cmd_demo(args) -> int:
     """The study of the bundled demo loop: every output and report.html into results/demo/."""
     from simloop.spec import loads
@@ -376,6 +400,11 @@ def build_parser() -> argparse.ArgumentParser:
                    help='frequency of the capacitor, distance and placement studies, e.g. "1 MHz" '
                         "(default: the channel nearest 1 MHz)")
     p.set_defaults(func=cmd_couple)
+
+    p = sub.add_parser("pattern", parents=[debug],
+                       help="receive patterns of the loop (and the radio's rod), their nulls and what fills them")
+    common(p)
+    p.set_defaults(func=cmd_pattern)
 
     p = sub.add_parser("study", parents=[debug],
                        help="sweep, tune and validate in one pass; all outputs plus report.html")

@@ -31,7 +31,7 @@ from simloop.spec import load
 from tests.conftest import SMALL_STACKED, write_spec
 
 ROOT = Path(__file__).resolve().parents[1]
-_real_solve_ports = solve_mod._solve_ports
+_real_solve = solve_mod._solve_plan
 
 
 def _env(**extra) -> dict:
@@ -63,10 +63,10 @@ def _wait_for(predicate, seconds: float = 120.0) -> bool:
 def _killing(targets_hz):
     """A worker body that dies by SIGKILL (as under the out-of-memory killer) at the target frequencies."""
 
-    def body(mesh, env, frequency_hz):
+    def body(mesh, env, frequency_hz, *plan):
         if any(abs(frequency_hz / f - 1) < 1e-9 for f in targets_hz):
             os.kill(os.getpid(), signal.SIGKILL)
-        return _real_solve_ports(mesh, env, frequency_hz)
+        return _real_solve(mesh, env, frequency_hz, *plan)
 
     return body
 
@@ -77,7 +77,7 @@ def test_a_worker_killed_mid_sweep_is_recorded_and_its_points_are_unreliable(
     spec_path = write_spec(tmp_path, SMALL_STACKED)
     f_sweep = load(spec_path).sweep.frequencies_hz
     killed = [float(f_sweep[-2]), float(f_sweep[-1])]  # direct-phase points (above the floor)
-    monkeypatch.setattr(solve_mod, "_solve_ports", _killing(killed))  # inherited by forked workers
+    monkeypatch.setattr(solve_mod, "_solve_plan", _killing(killed))  # inherited by forked workers
     out = tmp_path / "out"
     argv = ["sweep", str(spec_path), "--out", str(out), "--no-cache", "--workers", "2"]
     status = main(argv + (["--keep-going"] if keep_going else []))
@@ -104,17 +104,17 @@ import os, sys, time
 from simloop import solve as solve_mod
 from simloop.cli import main
 
-real = solve_mod._solve_ports
+real = solve_mod._solve_plan
 
-def marked(mesh, env, frequency_hz):
+def marked(mesh, env, frequency_hz, *plan):
     time.sleep(float(os.environ["TEST_SOLVE_DELAY_S"]))
-    out = real(mesh, env, frequency_hz)
+    out = real(mesh, env, frequency_hz, *plan)
     name = f"{frequency_hz:.6f}-{sum(mesh['segments'])}"
     with open(os.path.join(os.environ["TEST_MARKS"], name), "w"):
         pass
     return out
 
-solve_mod._solve_ports = marked
+solve_mod._solve_plan = marked
 sys.exit(main(sys.argv[1:]))
 """
 
@@ -331,12 +331,12 @@ import os, sys, time
 from simloop import solve as solve_mod
 from simloop.cli import main
 
-def hang(mesh, env, frequency_hz):
+def hang(mesh, env, frequency_hz, *plan):
     with open(os.path.join(os.environ["TEST_MARKS"], str(os.getpid())), "w"):
         pass
     time.sleep(120)
 
-solve_mod._solve_ports = hang
+solve_mod._solve_plan = hang
 sys.exit(main(sys.argv[1:]))
 """
 

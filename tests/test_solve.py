@@ -78,14 +78,14 @@ def _hang(*args):
 
 
 def test_a_crashing_solve_becomes_an_error_for_that_point(small_mesh, monkeypatch):
-    monkeypatch.setattr(solve_mod, "_solve_ports", _crash)  # inherited by the forked worker
+    monkeypatch.setattr(solve_mod, "_solve_plan", _crash)  # inherited by the forked worker
     out = solve_ports(small_mesh, Environment(), [1e6, 2e6], workers=2)
     assert all(isinstance(r, SolverError) for r in out)
     assert "died" in str(out[0])
 
 
 def test_a_hanging_solve_is_killed(small_mesh, monkeypatch):
-    monkeypatch.setattr(solve_mod, "_solve_ports", _hang)
+    monkeypatch.setattr(solve_mod, "_solve_plan", _hang)
     (res,) = solve_ports(small_mesh, Environment(), [1e6], timeout_s=1.0)
     # the worker sleeps 60 s; only a kill at the timeout gives this error (how long the kill
     # takes is measured in benchmarks/bench_timing.py, not asserted here)
@@ -207,7 +207,7 @@ def hang(*args):
         pass
     time.sleep(120)
 
-solve_mod._solve_ports = hang
+solve_mod._solve_plan = hang
 mesh = build_mesh(build_loop(0.4, 0.3, 3, 0.02, 0.406e-3, (2, 3), 0.06, "stacked"), 0.02)
 solve_mod.solve_ports(mesh, solve_mod.Environment(), [1e6, 2e6], workers=2)
 """
