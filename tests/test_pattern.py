@@ -1,7 +1,13 @@
 """The pattern physics: small-loop law, directivity, effective height, nulls, their filling,
 elevation and polarisation, the rod, and the receive response by reciprocity.
 
-The MoM meshes are single turns (76 segments, well under a second a solve)."""
+The MoM meshes are single turns (76 segments, well under a second a solve).
+
+Sources: Balanis, *Antenna Theory*, ch. 5 (small loop: |cos φ| pattern, directivity 1.5,
+effective height 2πNA/λ); the null-filling law 20·log10(e/√(1+e²)) and the elevation and
+polarisation law of a vertical loop, derived in docs/references.md §9 and §18; reciprocity
+(Lorentz) between transmit far field and receive voltage.
+"""
 
 import numpy as np
 import pytest

@@ -1,4 +1,9 @@
-"""The pattern study end to end: the command, ground, the power check, the dipole-model path."""
+"""The pattern study end to end: the command, ground, the power check, the dipole-model path.
+
+Sources: image theory over perfect ground (radiation resistance of a low horizontal-axis loop
+doubles; average gain over the upper hemisphere 2, common practice in MoM modelling,
+docs/references.md §9); energy conservation for the power check.
+"""
 
 import json
 

@@ -1,5 +1,9 @@
 """The solve plan: one factorisation per (mesh, environment, frequency) for every excitation and
-observation; merging; per-piece caching; counters instead of probing; a second executor."""
+observation; merging; per-piece caching; counters instead of probing; a second executor.
+
+Sources: Biot–Savart closed forms for the near field of a square loop (docs/references.md §2);
+Balanis ch. 5 for the far field; reciprocity between plane-wave and transmit responses.
+"""
 
 import concurrent.futures as cf
 import multiprocessing as mp
