@@ -21,7 +21,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 from simloop.geometry import build_loop  # noqa: E402
 from simloop.mesh import build_mesh  # noqa: E402
-from simloop.pattern import pattern_plan  # noqa: E402
+from simloop.patterns import pattern_plan  # noqa: E402
 from simloop.solve import Environment, _solve_plan  # noqa: E402
 
 

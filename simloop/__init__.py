@@ -8,6 +8,7 @@ Notebook API::
     chart = simloop.tune(spec, result)    # TuneResult
     check = simloop.validate(spec, result)  # ValidationResult
     link = simloop.couple(spec, result)     # CoupleResult: boost, placement, loop-radio 2-port
+    nulls = simloop.pattern(spec, result)   # PatternResult: receive patterns and their nulls
 """
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
@@ -49,6 +50,16 @@ def couple(spec, sweep=None, tune=None, **kwargs):
     return run_couple(spec, sweep, tune, **kwargs)
 
 
+def pattern(spec, sweep=None, **kwargs):
+    """Receive patterns of the loop and the radio's rod, their nulls and what fills them; runs the
+    sweep when not given. See :func:`simloop.patterns.run_pattern` for the keywords."""
+    from simloop.patterns import check_pattern_inputs, run_pattern
+
+    check_pattern_inputs(spec)
+    sweep = sweep if sweep is not None else globals()["sweep"](spec)
+    return run_pattern(spec, sweep, **kwargs)
+
+
 def validate(spec, sweep_result, **kwargs):
     """MoM against the quasi-static model and handbook formulas. See :func:`simloop.validation.run_validate`."""
     from simloop.validation import run_validate
@@ -56,4 +67,4 @@ def validate(spec, sweep_result, **kwargs):
     return run_validate(spec, sweep_result, **kwargs)
 
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "couple", "load", "sweep", "tune", "validate"]
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "couple", "load", "pattern", "sweep", "tune", "validate"]

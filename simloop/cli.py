@@ -308,7 +308,7 @@ def cmd_couple(args, spec=None, sweep=None) -> int:
 
 def cmd_pattern(args, spec=None, sweep=None) -> int:
     """Receive patterns of the loop (and the radio's rod), their nulls and what fills them."""
-    from simloop.pattern import check_pattern_inputs, run_pattern
+    from simloop.patterns import check_pattern_inputs, run_pattern
     from simloop.report import output_set
     from simloop.report_pattern import format_pattern_summary, write_pattern
     from simloop.spec import load

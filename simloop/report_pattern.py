@@ -1,6 +1,6 @@
 """The pattern report: ``pattern.json``, ``pattern.png`` and the printed null list.
 
-Causes and notes arrive from :mod:`simloop.pattern` as codes with numbers; they are worded here.
+Causes and notes arrive from :mod:`simloop.patterns` as codes with numbers; they are worded here.
 The figure is drawn on a :class:`matplotlib.figure.Figure` with the Agg canvas directly, so
 importing this module never changes a notebook's matplotlib backend.
 """
@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 
 from simloop.mesh import C0
-from simloop.pattern import DEPTH_FLOOR_DB, PatternResult
+from simloop.patterns import DEPTH_FLOOR_DB, PatternResult
 from simloop.report import _pairs, write_json
 
 #: The figure's dB floor: the rings run from here to 0 dB. [dB]

@@ -445,7 +445,7 @@ class PlaneWaves:
     """Linearly polarised 1 V/m plane waves arriving from the directions (θ_i, φ_i) (NEC type 1).
 
     ``eta_deg`` is NEC's polarisation angle: 0 puts E along NEC's θ̂ reference, 90 along φ̂ (NEC's
-    own sign convention; :mod:`simloop.pattern` compares it with the reciprocity result).
+    own sign convention; :mod:`simloop.patterns` compares it with the reciprocity result).
     """
 
     theta_deg: tuple

@@ -12,7 +12,7 @@ polarisation law of a vertical loop, derived in docs/references.md §9 and §18;
 import numpy as np
 import pytest
 
-from simloop import pattern as P
+from simloop import patterns as P
 from simloop.geometry import build_loop
 from simloop.mesh import C0, build_mesh
 from simloop.solve import Environment, solve_far_field

@@ -10,7 +10,7 @@ import json
 import numpy as np
 import pytest
 
-from simloop import pattern as P
+from simloop import patterns as P
 from simloop.cli import main
 from simloop.errors import SolverError
 from simloop.solve import Environment, FarField, PortCurrents, PortSources, SolvePlan, far_field_solution, solve_plans

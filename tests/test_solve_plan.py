@@ -11,7 +11,7 @@ import multiprocessing as mp
 import numpy as np
 import pytest
 
-from simloop import pattern as P
+from simloop import patterns as P
 from simloop.mesh import C0, Mesh
 from simloop.solve import (Environment, FarField, FuturesExecutor, NearFieldH, PlaneWaves, PortCurrents,
                            PortSources, SegmentCurrents, SolveCache, SolvePlan, far_field_solution, solve_plans,
