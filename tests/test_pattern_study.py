@@ -41,7 +41,7 @@ def test_pattern_command_writes_nulls_with_depth_and_cause(tmp_path, capsys):
     data = json.loads((out / "pattern.json").read_text())
     assert (out / "pattern.png").stat().st_size > 10_000
     assert len(data["azimuth_deg"]) == 360 and data["elevation_deg"] == [0.0, 30.0]
-    assert set(data["response_db"]) == {"loop", "receiver"}
+    assert set(data["response_db"]) == {"loop", "receiver", "system"}
     loop_db = np.array(data["response_db"]["loop"])
     assert loop_db.shape == (2, 360) and loop_db.max() == 0.0
     loop_nulls = [n for n in data["nulls"] if n["of"] == "loop"]
@@ -52,6 +52,18 @@ def test_pattern_command_writes_nulls_with_depth_and_cause(tmp_path, capsys):
     # the rod along (1, 1, 0) nulls arrivals along its axis: 45° and 225° (exact dipole)
     rod = sorted(round(n["azimuth_deg"], 6) for n in data["nulls"] if n["of"] == "receiver" and n["elevation_deg"] == 0)
     assert rod == [45.0, 225.0]
+    # the system: the rod turned 45° from the loop axis fills the loop's null (module law) and
+    # each system null is printed with its depth, cause and the law's prediction
+    system = [n for n in data["nulls"] if n["of"] == "system"]
+    assert len(system) == 4 and data["system"]["rod_angle_deg"] == pytest.approx(45.0)
+    for n in system:
+        assert -30.0 < n["depth_db"] < -10.0 and n["cause_text"] in printed
+        # the law leaves out the loop's own antenna effect (its null without the rod), which is in
+        # phase with the rod's part at the null: the depth lies between |a − b| and a + b
+        # (triangle inequality; a the law's residual, b the antenna effect's), ±0.3 dB
+        a, b = (10 ** (n["detail"][k] / 20) for k in ("law_depth_db", "without_rod_db"))
+        assert 20 * np.log10(abs(a - b)) - 0.3 <= n["depth_db"] <= 20 * np.log10(a + b) + 0.3
+        assert abs(n["azimuth_deg"] - n["detail"]["law_azimuth_deg"]) < 1.0
 
 
 def test_real_ground_at_the_horizon_is_refused_before_any_solve(tmp_path, capsys):
