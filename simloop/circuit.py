@@ -48,6 +48,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -256,6 +257,16 @@ class CircuitModel:
         return float(reference.resistance_per_length_round_wire(self.radius_m, frequency_hz,
                                                                 self.resistivity_ohm_m))
 
+    def with_proximity(self, proximity: bool) -> "CircuitModel":
+        """The same circuit with or without the proximity part of the series loss."""
+        if bool(proximity) == self.proximity:
+            return self
+        top = self.topology
+        if proximity:
+            raise ValueError("proximity factors need the mesh: use build_circuit(..., proximity=True)")
+        lengths = np.linalg.norm(top.ends - top.starts, axis=1)
+        return dataclasses.replace(self, k_r=top.w.T @ (lengths[:, None] * top.w), proximity=False)
+
     def _d(self, w):
         top = self.topology
         d = np.ones(top.w.shape[1], dtype=complex)
@@ -302,7 +313,12 @@ class CircuitModel:
         Scanned on a reduced model of [f_min, f_max] (default f_min = f_max/100), then refined by
         root finding on exact solves. None if there is none below ``f_max_hz``. [Hz]
         """
-        return _first_resonance(self, port, f_max_hz, f_min_hz or f_max_hz / 100)
+        return self.self_resonances_hz(f_max_hz, f_min_hz, ports=[port])[0]
+
+    def self_resonances_hz(self, f_max_hz: float, f_min_hz: float | None = None, ports=None) -> list:
+        """:meth:`self_resonance_hz` of several ports (default all) from one reduced model."""
+        ports = range(self.ports) if ports is None else ports
+        return _first_resonances(self, list(ports), f_max_hz, f_min_hz or f_max_hz / 100)
 
 
 def _moments(top: Topology, currents, charges):
@@ -508,13 +524,24 @@ def reduced_model(model: CircuitModel, f_min_hz: float, f_max_hz: float, *, samp
             states[f] = _exact_states(model, f)
 
 
-def _first_resonance(model: CircuitModel, port: int, f_max: float, f_min: float) -> float | None:
+def _first_resonances(model: CircuitModel, ports, f_max: float, f_min: float) -> list:
     from scipy.optimize import brentq
 
-    grid = np.geomspace(f_min, f_max, 400)
-    x = model.reduced_model(f_min, f_max, samples=6).z(grid)[:, port, port].imag
-    change = np.flatnonzero((x[:-1] > 0) & (x[1:] <= 0))
-    if change.size == 0:
-        return None
-    a, b = grid[change[0]], grid[change[0] + 1]
-    return float(brentq(lambda f: model.solve(f).z_ohm[port, port].imag, a, b, xtol=1e-7 * a))
+    grid = np.geomspace(f_min, f_max, 600)
+    z = model.reduced_model(f_min, f_max, samples=6).z(grid)
+    out = []
+    for port in ports:
+        x = z[:, port, port].imag
+        change = np.flatnonzero((x[:-1] > 0) & (x[1:] <= 0))
+        if change.size == 0:
+            out.append(None)
+            continue
+        a, b = grid[change[0]], grid[change[0] + 1]
+
+        def x_exact(f, port=port):
+            return model.solve(f).z_ohm[port, port].imag
+
+        if not (x_exact(a) > 0 >= x_exact(b)):  # the reduced model was off near a pole: widen
+            a, b = a / 1.05, b * 1.05
+        out.append(float(brentq(x_exact, a, b, xtol=1e-7 * a)))
+    return out

@@ -21,40 +21,61 @@ def result():
 
 def test_every_point_has_provenance_and_an_error(result):
     n, k = result.frequencies_hz.size, len(result.tap_turns)
-    assert set(result.source) <= {"mom", "model"}
+    assert set(result.source) <= {"mom", "circuit", "model"}
     assert result.error_estimate.shape == (n, k) and result.reliable.shape == (n, k)
     assert np.all(result.error_estimate > 0)
     assert np.array_equal(result.reliable, result.error_estimate < RELIABLE_BELOW)
     floor = result.mesh.floor_frequency_hz()
     f = result.frequencies_hz
-    assert np.all(result.source[f < floor * (1 - 1e-9)] == "model")
-    assert np.all(result.source[f >= floor] == "mom")
+    # below the MoM's floor only the circuit can give a trusted point
+    assert np.all(result.source[f < floor * (1 - 1e-9)] == "circuit")
+    assert any("circuit" in line for line in result.coverage)
 
 
-def test_model_agrees_with_direct_mom_where_both_exist(result):
-    # Points above the floor are solved directly; the fitted model must reproduce them (the fit
-    # window lies below, so these are held-back points for the model).
-    mom = result.source == "mom"
-    f = result.frequencies_hz[mom]
-    held_back = ~np.isin(f, result.model.fit_hz)
-    z_model = result.model.z(f[held_back])
-    z_mom = result.z_ohm[mom][held_back]
-    for i in range(len(result.tap_turns)):
-        rel = np.abs(z_model[:, i, i] - z_mom[:, i, i]) / np.abs(z_mom[:, i, i])
-        assert rel.max() < 0.01
+def test_circuit_and_mom_agree_where_both_exist(result):
+    # Above the floor every point was also solved by NEC (an independent full-wave MoM). On the
+    # tap at the end of the winding they agree within NEC's own pitch bias at draft quality
+    # (segment/pitch 2.5: about 2 %, measured, simloop.impedance.pitch_bias) once the resonance
+    # amplification is divided out; the mid tap carries NEC's junction bias (a few per cent,
+    # measured: detaching the open stub removed it).
+    assert len(result.solves) >= 1
+    assert result.mom_difference[1] < 0.025
+    assert 0.0 < result.mom_difference[0] < 0.10
 
 
-def test_fit_window_is_in_the_trusted_range(result):
+def test_tap_inductances_equal_the_partial_inductance_sums(result):
+    # Grover (1946) ch. 3 partial-inductance sum of each tap's own current path: the circuit's L0
+    # needs no junction correction (open wires carry no current at ω → 0); 1e-4 from the
+    # quadrature of the sloped advance pieces.
+    np.testing.assert_allclose(result.uncorrected_inductance_h, result.quasi_static_inductance_h,
+                               rtol=1e-4, atol=0)
+    # the lumped fit used for tuning keeps L0 within 0.1 % (fit window 0.1–0.5 × SRF)
+    np.testing.assert_allclose(result.inductance_h, result.quasi_static_inductance_h, rtol=1e-3, atol=0)
+
+
+def test_fit_window_is_below_the_self_resonance(result):
     fit = result.model.fit_hz
-    assert fit.min() >= result.mesh.floor_frequency_hz(5e-5) * (1 - 1e-9)
-    assert fit.max() <= 0.65 * np.nanmin(result.self_resonance_hz)
+    assert fit.max() <= 0.6 * np.nanmin(result.self_resonance_hz) * (1 + 1e-9)
 
 
 def test_self_resonance_from_the_model_is_where_the_reactance_turns(result):
     # At the fitted self-resonance the model's tap reactance changes sign (parallel resonance).
-    for i, srf in enumerate(result.self_resonance_hz):
+    for i in range(len(result.tap_turns)):
+        srf = result.model.self_resonance_hz(i, 1e9)
         x = result.model.z(np.array([0.98, 1.02]) * srf, lossless=True)[:, i, i].imag
         assert x[0] > 0 > x[1]
+        # the lumped model's resonance lies within 5 % of the circuit's own: its one-pole form,
+        # fitted in the band, extrapolates to the resonance (measured 2–3 % on this loop)
+        assert srf == pytest.approx(result.self_resonance_hz[i], rel=0.05, abs=0)
+
+
+def test_lumped_model_reproduces_the_circuit_in_the_band(result):
+    # The lumped model serves tuning between the sweep points: within 0.5 % of the circuit's
+    # points in the band (its fit window), proximity loss added the same way as for the MoM.
+    z_model = result.model_z(result.frequencies_hz, proximity=True)
+    for i in range(len(result.tap_turns)):
+        rel = np.abs(z_model[:, i, i] / result.z_ohm[:, i, i] - 1)
+        assert rel.max() < 0.005
 
 
 def test_error_model_matches_the_measured_tables():
@@ -114,7 +135,7 @@ def test_touchstone_s_parameters_follow_the_standard():
 
 def test_loss_model_follows_the_skin_effect(result):
     # The fitted conductor-loss coefficient times the exact skin-effect ratio must reproduce the
-    # resistance the MoM gave at the fit points (NEC's type-5 load is skin effect only).
+    # resistance of the (skin-effect only) circuit solves it was fitted to.
     geom = result.geometry
     path_len = np.linalg.norm(np.subtract(*geom.current_path(1)[::-1]), axis=1).sum()
     f = result.model.fit_hz
