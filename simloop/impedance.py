@@ -152,6 +152,8 @@ class SweepResult:
         Which source covered which part of the band.
     circuit_inductance_h : ndarray, shape (k, k)
         Low-frequency inductance matrix from the circuit solver. [H]
+    circuit : CircuitModel
+        The filled circuit (re-used by validate, coupling and patterns).
     """
 
     name: str
@@ -180,6 +182,7 @@ class SweepResult:
     circuit_segments: int = 0
     circuit_seconds: float = 0.0
     circuit_inductance_h: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    circuit: CircuitModel | None = field(default=None, repr=False)
 
     @property
     def inductance_h(self) -> np.ndarray:
@@ -515,18 +518,41 @@ def filament_error(geom: LoopGeometry) -> float:
     return factor / (2 * np.log(turn_len / geom.wire_radius_m))
 
 
+def ground_effect(geom: LoopGeometry, env: Environment) -> np.ndarray:
+    """Relative change of each tap's L0 by a perfectly conducting ground's image, shape (k,). [-]
+
+    The circuit solver works in free space; over ground this bounds what it leaves out of L0
+    (a real ground at MF reflects less than a perfect one). The image of a current element at
+    height z is the mirrored element with its horizontal components reversed.
+    """
+    k = len(geom.tap_turns)
+    if env.ground == "free-space":
+        return np.zeros(k)
+    out = np.zeros(k)
+    for i in range(k):
+        s, e = geom.current_path(i)
+        flip = np.array([1.0, 1.0, -1.0])
+        ms, me = s * flip - [0, 0, 2 * env.height_m], e * flip - [0, 0, 2 * env.height_m]
+        # image current = −(mirrored direction): swap the mirrored piece's ends
+        a0, a1 = s[:, None, :], e[:, None, :]
+        m = reference.mutual_inductance_filaments(a0, a1, me[None, :, :], ms[None, :, :])
+        out[i] = abs(float(m.sum())) / reference.inductance_partial_sum(s, e, geom.wire_radius_m)
+    return out
+
+
 def _loop_size_m(geom: LoopGeometry) -> float:
     pts = np.concatenate([geom.starts, geom.ends])
     return float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0)))
 
 
-def _point_errors(geom, mesh, circ: CircuitStage, f_sweep, d_mom, end_tap, asym):
+def _point_errors(geom, mesh, env, circ: CircuitStage, f_sweep, d_mom, end_tap, asym):
     """Relative |Z| error estimates per point and tap: (circuit, mom) each (n, k)."""
     amp = _amplification(f_sweep, circ.self_resonance_hz)
     ret = RETARDATION_COEF * (2 * np.pi * f_sweep / C0 * _loop_size_m(geom)) ** 2
     d_end = float(np.nanmax(np.where(end_tap, d_mom, np.nan))) if np.any(np.isfinite(d_mom[end_tap])) else 0.0
-    base_c = np.sqrt(ret**2 + filament_error(geom) ** 2 + circ.rom_error**2 + d_end**2)
-    eps_c = np.minimum(base_c[:, None] * amp, 1.0)
+    base_c = np.sqrt(ret[:, None] ** 2 + filament_error(geom) ** 2 + circ.rom_error**2 + d_end**2
+                     + ground_effect(geom, env)[None, :] ** 2)
+    eps_c = np.minimum(base_c * amp, 1.0)
     mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if geom.turn.max() >= 1 else 2e-3
     brk = np.array([breakdown_error(mesh.shortest_m * f / C0) for f in f_sweep])
     junction = np.where(end_tap, 0.0, np.nan_to_num(d_mom, nan=0.0))
@@ -587,7 +613,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     end_tap = np.array([n == spec.winding.turns for n in geom.tap_turns])
     d_mom = _mom_difference(circ, solved, end_tap)
     asym = max((r.asymmetry for r in records), default=0.0)
-    eps_c, eps_m = _point_errors(geom, mesh, circ, f_sweep, d_mom, end_tap, asym)
+    eps_c, eps_m = _point_errors(geom, mesh, env, circ, f_sweep, d_mom, end_tap, asym)
     z, source, eps = _assemble(f_sweep, circ, solved, eps_c, eps_m, direct)
     l_qs = np.array([reference.inductance_partial_sum(*geom.current_path(i), geom.wire_radius_m)
                      for i in range(k)])
@@ -608,4 +634,4 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         mom_self_resonance_hz=_mom_self_resonance(circ, solved),
         coverage=tuple(plan.coverage(float(f_sweep.min()), float(f_sweep.max()))),
         circuit_segments=plan.circuit_mesh.n_segments, circuit_seconds=circ.seconds,
-        circuit_inductance_h=circ.inductance_h)
+        circuit_inductance_h=circ.inductance_h, circuit=circ.model)
