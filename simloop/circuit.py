@@ -52,7 +52,7 @@ import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import sparse
+from scipy import sparse, special
 from scipy.linalg import lu_factor, lu_solve
 from scipy.sparse.csgraph import breadth_first_order
 
@@ -173,42 +173,79 @@ def node_potential_matrix(top: Topology, radius_m: float) -> np.ndarray:
     return np.asarray(s @ (s @ p_half).T)
 
 
-def proximity_factors_per_turn(turns: int, spacing_ratio: float) -> np.ndarray:
-    r"""Proximity-loss factor R_p/R_0 of each wire in a row of ``turns`` equal wires, shape (N,).
+def proximity_coupling(turns: int, spacing_ratio: float) -> np.ndarray:
+    r"""Proximity-loss matrix of a row of N parallel wires with arbitrary currents, shape (N, N). [-]
 
-    Per wire n, :math:`\sum_m c_{nm}^2/2` of Smith's (1972) surface-current expansion; their mean
-    is :func:`simloop.reference.proximity_factor_smith1972`. The end wires of a row lose less
-    than the middle ones.
+    Smith's (1972) 2-D expansion with absolute coefficients: the surface current of wire n is
+    :math:`K_n = \frac{1}{2\pi a}[I_n + \sum_m C_{nm}\cos m\varphi]`, and requiring A_z constant
+    on every wire gives C = T I, linear in the wire currents (a wire with no net current, an open
+    turn, still carries eddy currents). The loss per unit length is R'_skin·Iᵀ(1 + ½TᵀT)I; this
+    returns ½TᵀT. With equal currents its sum over all elements is N·R_p/R_0 of
+    :func:`simloop.reference.proximity_factor_smith1972`; for N = 2 it is the exact two-wire
+    result.
     """
-    if turns < 2:
-        return np.zeros(max(turns, 1))
-    harmonics = int(np.clip(np.ceil(-40 / np.log(1 / (2 * spacing_ratio))) + 8, 8, 400))
-    c = reference._proximity_coefficients(int(turns), float(spacing_ratio), harmonics)
-    return np.sum(c**2, axis=1) / 2
+    n_w = int(turns)
+    if n_w < 2:
+        return np.zeros((max(n_w, 1), max(n_w, 1)))
+    ca = float(spacing_ratio)
+    h = int(np.clip(np.ceil(-40 / np.log(1 / (2 * ca))) + 8, 8, 400))
+    kk = np.arange(1, h + 1)
+    centres = (2 * np.arange(n_w) - (n_w - 1)) * ca
+    lg = special.gammaln(kk[None, :] + kk[:, None]) - special.gammaln(kk[:, None] + 1) - special.gammaln(kk[None, :])
+    mat = np.eye(n_w * h)
+    rhs = np.zeros((n_w * h, n_w))
+    for n in range(n_w):
+        for p in range(n_w):
+            if p == n:
+                continue
+            t = 1.0 / (centres[n] - centres[p])
+            logmag = lg + np.log(kk[:, None] / kk[None, :]) + (kk[None, :] + kk[:, None]) * np.log(abs(t))
+            sign = (-1.0) ** kk[:, None] * np.sign(t) ** (kk[None, :] + kk[:, None])
+            mat[n * h:(n + 1) * h, p * h:(p + 1) * h] += sign * np.exp(logmag)
+            rhs[n * h:(n + 1) * h, p] = 2 * (-1.0) ** (kk + 1) * t**kk
+    tt = np.linalg.solve(mat, rhs)
+    return 0.5 * tt.T @ tt
 
 
-def segment_loss_weights(mesh: Mesh, proximity: bool) -> np.ndarray:
-    """Length × (1 + proximity factor) of every segment: R = weight × R'_skin(f). [m]
+def _turn_of_segments(mesh: Mesh, wire: np.ndarray) -> np.ndarray:
+    """Winding turn of every segment (-1 off the winding); five pieces per turn, in order."""
+    turn = np.where(mesh.winding_wire[wire], mesh.piece[wire] // PIECES_PER_TURN, -1)
+    return turn
 
-    The turn of a winding segment is its geometry piece // 5 (:func:`simloop.geometry.build_loop`
-    lays out five pieces per turn, in order); the pitch is the distance between the first points of
-    successive turns. Every winding turn is taken as one wire of a row of all the winding's turns
-    carrying equal currents (exact for the tap at the end of the winding; for a mid tap the open
-    turns beyond it carry no current and its loss is somewhat overestimated).
+
+def segment_resistance_matrix(mesh: Mesh, proximity: bool) -> np.ndarray:
+    """Series-loss matrix of the segments in units of R'_skin(f): R = matrix × R'_skin. [m]
+
+    Diagonal: the segment lengths (skin effect). With ``proximity``, the turn-to-turn matrix of
+    :func:`proximity_coupling` is spread over winding segments: each pair of parallel segments in
+    turns t, t' whose axial extents overlap by o metres and whose distance is within half a pitch
+    of |t − t'| pitches gets ½(TᵀT)_tt'·o (the 2-D model applied locally along the sides).
     """
-    _, _, wire = mesh_segments(mesh)
-    lengths = mesh.segment_lengths_m[wire]
-    factor = np.zeros(wire.size)
-    winding = mesh.winding_wire[wire]
-    if proximity and np.any(winding):
-        turn = mesh.piece[wire] // PIECES_PER_TURN
-        n_turns = int(turn[winding].max()) + 1
-        if n_turns > 1:
-            first = [np.flatnonzero(mesh.winding_wire & (mesh.piece == PIECES_PER_TURN * t))[0] for t in (0, 1)]
-            pitch = float(np.linalg.norm(mesh.starts[first[1]] - mesh.starts[first[0]]))
-            per_turn = proximity_factors_per_turn(n_turns, pitch / (2 * mesh.radius_m))
-            factor[winding] = per_turn[turn[winding]]
-    return lengths * (1.0 + factor)
+    starts, ends, wire = mesh_segments(mesh)
+    lengths = np.linalg.norm(ends - starts, axis=1)
+    out = np.diag(lengths)
+    turn = _turn_of_segments(mesh, wire)
+    if not proximity or turn.max() < 1:
+        return out
+    n_turns = int(turn.max()) + 1
+    first = [np.flatnonzero(mesh.winding_wire & (mesh.piece == PIECES_PER_TURN * t))[0] for t in (0, 1)]
+    pitch = float(np.linalg.norm(mesh.starts[first[1]] - mesh.starts[first[0]]))
+    coupling = proximity_coupling(n_turns, pitch / (2 * mesh.radius_m))
+    idx = np.flatnonzero(turn >= 0)
+    i, j = np.meshgrid(idx, idx, indexing="ij")
+    i, j = i.ravel(), j.ravel()
+    u = (ends - starts) / lengths[:, None]
+    par = np.abs(np.einsum("ij,ij->i", u[i], u[j])) > 1 - 1e-6
+    i, j = i[par], j[par]
+    s0 = np.einsum("ij,ij->i", starts[j] - starts[i], u[i])
+    s1 = np.einsum("ij,ij->i", ends[j] - starts[i], u[i])
+    overlap = np.clip(np.minimum(lengths[i], np.maximum(s0, s1)) - np.maximum(0.0, np.minimum(s0, s1)), 0, None)
+    perp = np.linalg.norm(starts[j] - starts[i] - s0[:, None] * u[i], axis=1)
+    dt = np.abs(turn[i] - turn[j])
+    near = (overlap > 0) & (np.abs(perp - dt * pitch) < 0.5 * pitch)
+    i, j, o = i[near], j[near], overlap[near]
+    np.add.at(out, (i, j), coupling[turn[i], turn[j]] * o)
+    return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -408,9 +445,9 @@ def build_circuit(mesh: Mesh, *, resistivity_ohm_m: float | None, proximity: boo
     p_node = node_potential_matrix(top, mesh.radius_m)
     o, r = top.other_nodes, top.root
     p_r = p_node[np.ix_(o, o)] - p_node[o, r][:, None] - p_node[r, o][None, :] + p_node[r, r]
-    wts = segment_loss_weights(mesh, proximity)
+    r_seg = segment_resistance_matrix(mesh, proximity)
     w = top.w
-    return CircuitModel(topology=top, k_l=w.T @ lp @ w, k_r=w.T @ (wts[:, None] * w), p_r=p_r,
+    return CircuitModel(topology=top, k_l=w.T @ lp @ w, k_r=w.T @ r_seg @ w, p_r=p_r,
                         radius_m=float(mesh.radius_m), resistivity_ohm_m=resistivity_ohm_m,
                         proximity=bool(proximity), partial_inductance_h=lp)
 

@@ -581,16 +581,19 @@ _SRC_CIRCUIT = "circuit solver (PEEC of the same path; series branch, fitted shu
 
 
 def _circuit_values(circuits, sweep: SweepResult, f: float) -> list[dict]:
-    """Per tap: the circuit solver's series L, R_rad, wire loss and Q at f (keys as Check.quantity)."""
-    with_prox, skin_only = circuits
+    """Per tap: the circuit solver's series L, R_rad, wire loss and Q at f (keys as Check.quantity).
+
+    Like the MoM column: series branch with the fitted shunt C removed; radiation resistance from
+    the lossless circuit's series branch, wire loss as lossy − lossless."""
+    with_prox, skin_only, lossless = circuits
     cap = sweep.model.capacitance_f
     w = 2 * np.pi * f
-    sol0 = skin_only.solve(f)
-    zs0 = _series(np.linalg.inv(sol0.z_ohm), cap, f)
+    zs0 = _series(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
     zsp = _series(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
+    zsl = _series(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
     out = []
     for i in range(zs0.shape[0]):
-        rr = float(sol0.radiation_resistance_ohm[i, i])
+        rr = float(zsl[i, i].real)
         out.append({"L": zs0[i, i].imag / w, "R_rad": rr, "R_loss skin": zs0[i, i].real - rr,
                     "R_loss skin+prox": zsp[i, i].real - rr, "Q skin": zs0[i, i].imag / zs0[i, i].real,
                     "Q skin+prox": zsp[i, i].imag / zsp[i, i].real, "Q tune": zsp[i, i].imag / zsp[i, i].real})
@@ -850,7 +853,9 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
     # --- Rows ---------------------------------------------------------------------------------
     agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f) if mom_ok else ([], {}, [])
     notes += agt_notes
-    circuits = None if sweep.circuit is None else (sweep.circuit, sweep.circuit.with_proximity(False))
+    circuits = None if sweep.circuit is None else (
+        sweep.circuit, sweep.circuit.with_proximity(False),
+        dataclasses.replace(sweep.circuit, resistivity_ohm_m=None))
     cache_c: dict[float, list] = {}
 
     def circ_values(f):
