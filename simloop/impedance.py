@@ -556,7 +556,8 @@ def _point_errors(geom, mesh, env, circ: CircuitStage, f_sweep, d_mom, end_tap, 
     mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if geom.turn.max() >= 1 else 2e-3
     brk = np.array([breakdown_error(mesh.shortest_m * f / C0) for f in f_sweep])
     junction = np.where(end_tap, 0.0, np.nan_to_num(d_mom, nan=0.0))
-    eps_m = np.sqrt(mesh_bias**2 + brk[:, None] ** 2 + junction[None, :] ** 2) * amp
+    # the measured MoM–circuit difference is charged to both sides: it does not say which is off
+    eps_m = np.sqrt(mesh_bias**2 + brk[:, None] ** 2 + junction[None, :] ** 2 + d_end**2) * amp
     eps_m = np.where(asym > ASYMMETRY_LIMIT, 1.0, np.minimum(eps_m, 1.0))
     return eps_c, eps_m
 
@@ -618,7 +619,9 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     l_qs = np.array([reference.inductance_partial_sum(*geom.current_path(i), geom.wire_radius_m)
                      for i in range(k)])
     l0 = np.diag(circ.inductance_h)
-    eps_l = np.sqrt(filament_error(geom) ** 2 + circ.rom_error**2 + (l0 / l_qs - 1.0) ** 2)
+    l_fit = np.diag(circ.lumped.inductance_h)  # what SweepResult.inductance_h reports
+    off = np.maximum(np.abs(l0 / l_qs - 1.0), np.abs(l_fit / l_qs - 1.0))
+    eps_l = np.sqrt(filament_error(geom) ** 2 + circ.rom_error**2 + off**2)
     notes = [f"MoM solve failed at {f / 1e6:.3f} MHz: {e}" for f, e in failures.items()]
     if asym > ASYMMETRY_LIMIT:
         notes.append(f"MoM port matrix reciprocity defect {asym:.0%} exceeds {ASYMMETRY_LIMIT:.0%}: "

@@ -695,7 +695,7 @@ def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[C
         rows.append(_check("Q tune", "-", tf.turns, f, w * sweep.inductance_h[i] / r_tot if r_tot > 0 else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "fitted MoM model + proximity term: ωL0/(R_s + R_prox), what tune uses",
+                           "lumped model (fitted to circuit solves) + proximity term: ωL0/(R_s + R_prox), what tune uses",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
                            "ωL_hb / (Smith 1972 loss + Balanis R_rad)"))
     return rows
@@ -901,7 +901,7 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
         notes.append("mesh convergence needs three solvable meshes; not assessed")
 
     checks_t = tuple(checks)
-    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence, plan)
+    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence and mom_ok, plan, mom_ok)
     return ValidationResult(
         name=sweep.name,
         tap_turns=tuple(sweep.tap_turns),
@@ -1012,13 +1012,17 @@ def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str
     return out
 
 
-def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None):
-    """ok | caution | unreliable, with the reasons in words (see the README)."""
+def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None,
+             mom_ok: bool = True):
+    """ok | caution | unreliable, with the reasons in words (see the README).
+
+    Without a MoM (mesh too large to solve) the MoM's mesh rules, convergence and self-resonance
+    bracket do not apply: the sweep's numbers come from the circuit solver alone."""
     rank = {"ok": 0, "caution": 1, "unreliable": 2}
     overall: list[tuple[str, str]] = []
     per_tap: dict[int, list[tuple[str, str]]] = {n: [] for n in sweep.tap_turns}
 
-    for r in sweep.rules:
+    for r in sweep.rules if mom_ok else ():
         if r.status == "fail":
             overall.append(("unreliable", f"mesh rule '{r.name}' fails: {r.detail}"))
         elif r.status == "warn" and r.name in _MESH_RULES_CAUTION:
@@ -1050,7 +1054,8 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
         if srf is not None and np.isfinite(sweep.self_resonance_hz[sweep.tap_turns.index(n)]):
             f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
             if srf.mom is None:
-                per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
+                if mom_ok:
+                    per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
             else:
                 # An SRF misfit δ moves the model's |Z| at the top of the band by about
                 # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
@@ -1092,6 +1097,8 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
                                                       f"extrapolated zero-segment value"))
     elif convergence_run:
         overall.append(("caution", "mesh convergence could not be assessed"))
+    elif not mom_ok:
+        pass  # no MoM: nothing of it to converge
     else:
         overall.append(("caution", "mesh convergence not checked (--no-convergence)"))
 
