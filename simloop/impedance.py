@@ -154,6 +154,8 @@ class SweepResult:
         Low-frequency inductance matrix from the circuit solver. [H]
     circuit : CircuitModel
         The filled circuit (re-used by validate, coupling and patterns).
+    model_proximity : LoopModel
+        Lumped model fitted to the circuit with its proximity loss (what ``model_z`` uses).
     """
 
     name: str
@@ -183,6 +185,7 @@ class SweepResult:
     circuit_seconds: float = 0.0
     circuit_inductance_h: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
     circuit: CircuitModel | None = field(default=None, repr=False)
+    model_proximity: LoopModel | None = None
 
     @property
     def inductance_h(self) -> np.ndarray:
@@ -203,10 +206,14 @@ class SweepResult:
         """Impedance matrix from the fitted model at any frequency, shape (n, k, k). [Ω]
 
         With ``proximity`` the proximity-effect loss of close-wound turns, which NEC does not
-        model, is added to the series resistance (:mod:`simloop.losses`).
+        model, is included: from the lumped model fitted to the circuit solver with its proximity
+        loss (``model_proximity``; it has the open turns' eddy loss of mid taps), else added by
+        :mod:`simloop.losses`.
         """
         from simloop.losses import proximity_resistance
 
+        if proximity and self.model_proximity is not None:
+            return self.model_proximity.z(frequency_hz)
         extra = proximity_resistance(self.geometry, frequency_hz, self.resistivity_ohm_m) if proximity else None
         return self.model.z(frequency_hz, extra_series_ohm=extra)
 
@@ -407,11 +414,12 @@ class CircuitStage:
     self_resonance_hz: np.ndarray  # (k,), NaN if none below SRF_SEARCH × stop
     inductance_h: np.ndarray  # (k, k) at ω → 0
     lumped: LoopModel
+    lumped_proximity: LoopModel
     seconds: float
 
 
 def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, f_sweep,
-                         resistivity) -> LoopModel:
+                         resistivity, proximity: bool = False) -> LoopModel:
     """The lumped L-C model fitted to exact circuit solves (skin loss only, as from the MoM), for
     tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds), or
     0.1–0.5 × the resonance if the band starts above that."""
@@ -420,8 +428,8 @@ def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, 
     if hi < 1.3 * lo:
         lo, hi = 0.1 * top, 0.5 * top
     fit_hz = np.geomspace(lo, hi, WINDOW_POINTS)
-    skin_only = cm.with_proximity(False)
-    y = np.array([np.linalg.inv(skin_only.solve(f).z_ohm) for f in fit_hz])
+    circuit = cm if proximity else cm.with_proximity(False)
+    y = np.array([np.linalg.inv(circuit.solve(f).z_ohm) for f in fit_hz])
     return fit_loop_model(fit_hz, y, geom.wire_radius_m, resistivity)
 
 
@@ -444,9 +452,10 @@ def _circuit_stage(geom: LoopGeometry, plan: SourcePlan, env: Environment, f_swe
     f_low = float(f_sweep.min()) / 100
     l0 = cm.solve(f_low).z_ohm.imag / (2 * np.pi * f_low)
     lumped = _lumped_from_circuit(cm, geom, srf, f_sweep, env.resistivity_ohm_m)
+    lumped_p = _lumped_from_circuit(cm, geom, srf, f_sweep, env.resistivity_ohm_m, proximity=True)
     if progress:
         progress("circuit", 3, 3)
-    return CircuitStage(cm, z, rom.error, srf, l0, lumped, time.perf_counter() - t0)
+    return CircuitStage(cm, z, rom.error, srf, l0, lumped, lumped_p, time.perf_counter() - t0)
 
 
 def _mom_stage(mesh: Mesh, env: Environment, freqs, workers, cache, progress):
@@ -649,4 +658,4 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         mom_self_resonance_hz=_mom_self_resonance(circ, solved),
         coverage=tuple(plan.coverage(float(f_sweep.min()), float(f_sweep.max()))),
         circuit_segments=plan.circuit_mesh.n_segments, circuit_seconds=circ.seconds,
-        circuit_inductance_h=circ.inductance_h, circuit=circ.model)
+        circuit_inductance_h=circ.inductance_h, circuit=circ.model, model_proximity=circ.lumped_proximity)

@@ -686,16 +686,18 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
 def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[Check]:
     """The Q tune uses, at the bottom, middle and top of the band: fitted model + proximity."""
     band = [spec.sweep.start_hz, 0.5 * (spec.sweep.start_hz + spec.sweep.stop_hz), spec.sweep.stop_hz]
-    r_model = sweep.model.series_resistance(band)[:, i, i]
+    mp = sweep.model_proximity
+    r_model = (mp if mp is not None else sweep.model).series_resistance(band)[:, i, i]
+    l_tune = mp.inductance_h[i, i] if mp is not None else sweep.inductance_h[i]
     rows = []
     for b, f in enumerate(band):
         w = 2 * np.pi * f
         fr = _formula_resistances(sweep, i, tf, f)
-        r_tot = r_model[b] + fr["prox"]
-        rows.append(_check("Q tune", "-", tf.turns, f, w * sweep.inductance_h[i] / r_tot if r_tot > 0 else None,
+        r_tot = r_model[b] + (0.0 if mp is not None else fr["prox"])
+        rows.append(_check("Q tune", "-", tf.turns, f, w * l_tune / r_tot if r_tot > 0 else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "lumped model (fitted to circuit solves) + proximity term: ωL0/(R_s + R_prox), what tune uses",
+                           "lumped model fitted to the circuit with its proximity loss: ωL0/R_s, what tune uses",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
                            "ωL_hb / (Smith 1972 loss + Balanis R_rad)"))
     return rows
