@@ -109,7 +109,7 @@ def _solve_failures(args, sweep) -> int:
 
 
 def cmd_check(args) -> int:
-    from simloop.impedance import prepare
+    from simloop.impedance import plan_sources, prepare
     from simloop.mesh import C0, segment_rule
     from simloop.spec import load
 
@@ -143,6 +143,10 @@ def cmd_check(args) -> int:
     width = max(len(r.name) for r in rules)
     for r in rules:
         print(f"  [{r.status:>4}] {r.name:<{width}}  {r.detail}")
+    plan = plan_sources(spec, geom, mesh)
+    print("sources (decided before any solve):")
+    for line in plan.coverage(spec.sweep.start_hz, spec.sweep.stop_hz):
+        print(f"  {line}")
     return 0
 
 
@@ -181,9 +185,10 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
             print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error[i]:.1%} "
                   f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH{fix}), "
                   f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
-        n_mom = int((result.source == "mom").sum())
-        print(f"{n_mom} points by direct MoM, {result.source.size - n_mom} from the model fitted at "
-              f"{', '.join(f'{f / 1e6:.3f}' for f in result.model.fit_hz)} MHz")
+        counts = {s: int((result.source == s).sum()) for s in ("circuit", "mom", "model")}
+        print(", ".join(f"{n} points from {s}" for s, n in counts.items() if n)
+              + f" ({result.circuit_segments}-segment circuit, reduced-model error "
+              f"{result.circuit_rom_error:.1e}; {len(result.solves)} direct MoM solves)")
         if result.window_note:
             print(f"note: {result.window_note}")
         print(f"wrote {len(paths)} files to {out}/")

@@ -329,9 +329,19 @@ def _clearance_block(geom: LoopGeometry, i, j, most: int) -> list[tuple[str, str
     joined = gap < 1e-9
     kinds = np.array(geom.kinds)
     both_winding = (kinds[i] == WINDING) & (kinds[j] == WINDING)
+    # A lead that leaves the winding (shares an end point with a winding piece) starts next to
+    # the neighbouring turn, one pitch away, like any two turns: it needs the winding's clearance
+    # (no touching) from winding pieces, not more.
+    tip = np.concatenate([geom.starts, geom.ends])
+    on_winding = np.concatenate([kinds == WINDING, kinds == WINDING])
+    wind_pts = tip[on_winding]
+    joins = np.array([np.min(np.linalg.norm(wind_pts[:, None, :] - np.stack([p, q])[None], axis=-1)) < 1e-9
+                      for p, q in zip(geom.starts, geom.ends)])
+    leaving = ((kinds[i] == WINDING) & joins[j] & (kinds[j] != WINDING)) | \
+              ((kinds[j] == WINDING) & joins[i] & (kinds[i] != WINDING))
     # Adjacent turns may be close wound (the spec already demands pitch > diameter); anything
-    # involving a lead must keep three diameters, so a lead never grazes the winding.
-    limit = np.where(both_winding, 2.0 * geom.wire_radius_m, 6.0 * geom.wire_radius_m)
+    # else involving a lead must keep three diameters, so a lead never grazes the winding.
+    limit = np.where(both_winding | leaving, 2.0 * geom.wire_radius_m, 6.0 * geom.wire_radius_m)
     bad = np.flatnonzero(~joined & (dist < limit))
     problems = []
     for b in bad[:most]:

@@ -39,6 +39,7 @@ from simloop import reference
 from simloop.errors import SolverError, SpecError
 from simloop.geometry import (LoopGeometry, check_clearances, loop_from_spec, rod_clearance_problems,
                               single_tap_circuit)
+from simloop.circuit import CircuitModel, build_circuit
 from simloop.lumped import LoopModel, fit_loop_model
 from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, Rule, build_mesh, mesh_for_spec, mesh_rules
 from simloop.solve import Environment, PortSolution, SolveCache, SolveRequest, solve_many, solve_ports
@@ -133,14 +134,17 @@ class SweepResult:
     z_ohm : ndarray, shape (n, k, k), complex
         Open-circuit impedance matrix of the k tap ports (unused taps open). [Ω]
     source : ndarray of str, shape (n,)
-        ``"mom"`` (direct solve) or ``"model"`` (fitted model) per point.
+        ``"circuit"`` (the PEEC circuit solver), ``"mom"`` (direct NEC solve, where its error
+        estimate is the smaller) or ``"model"`` (fitted lumped model) per point.
     error_estimate : ndarray, shape (n, k)
         Relative error estimate of |Z_ii| per point and tap. [-]
     reliable : ndarray of bool, shape (n, k)
     tap_turns : tuple of int
     model : LoopModel
+        Lumped L-C model fitted to exact circuit solves (skin loss only), for tuning.
     self_resonance_hz : ndarray, shape (k,)
-        Self-resonance of each tap from the model (NaN if above the model's reach). [Hz]
+        Self-resonance of each tap from the circuit solver (NaN if none below 40 × the top of
+        the sweep). [Hz]
     inductance_error : ndarray, shape (k,)
         Relative error estimate of L0 per tap. [-]
     quasi_static_inductance_h : ndarray, shape (k,)
@@ -152,6 +156,23 @@ class SweepResult:
     failures : tuple of SolveFailure
         Solves that failed. A sweep point whose direct solve failed carries the model value with
         error estimate 1 and is never reliable.
+        L0 of each tap from the circuit solver (which needs no junction correction). [H]
+    circuit_rom_error : float
+        Error of the circuit's reduced-order model against held-back exact solves. [-]
+    mom_difference : ndarray, shape (k,)
+        Largest |Z_ii(MoM)/Z_ii(circuit) − 1| over the direct MoM solves, divided by the resonance
+        amplification 1/|1 − (f/f_srf)²|; NaN without MoM solves. For mid taps it is mostly the
+        NEC junction bias. [-]
+    mom_self_resonance_hz : ndarray, shape (k,)
+        Self-resonance implied by a direct MoM solve near it (NaN if none). [Hz]
+    coverage : tuple of str
+        Which source covered which part of the band.
+    circuit_inductance_h : ndarray, shape (k, k)
+        Low-frequency inductance matrix from the circuit solver. [H]
+    circuit : CircuitModel
+        The filled circuit (re-used by validate, coupling and patterns).
+    model_proximity : LoopModel
+        Lumped model fitted to the circuit with its proximity loss (what ``model_z`` uses).
     """
 
     name: str
@@ -174,6 +195,15 @@ class SweepResult:
     window_note: str = ""
     environment: Environment = field(default_factory=Environment)
     failures: tuple[SolveFailure, ...] = ()
+    circuit_rom_error: float = float("nan")
+    mom_difference: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    mom_self_resonance_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    coverage: tuple[str, ...] = ()
+    circuit_segments: int = 0
+    circuit_seconds: float = 0.0
+    circuit_inductance_h: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    circuit: CircuitModel | None = field(default=None, repr=False)
+    model_proximity: LoopModel | None = None
 
     @property
     def inductance_h(self) -> np.ndarray:
@@ -194,10 +224,14 @@ class SweepResult:
         """Impedance matrix from the fitted model at any frequency, shape (n, k, k). [Ω]
 
         With ``proximity`` the proximity-effect loss of close-wound turns, which NEC does not
-        model, is added to the series resistance (:mod:`simloop.losses`).
+        model, is included: from the lumped model fitted to the circuit solver with its proximity
+        loss (``model_proximity``; it has the open turns' eddy loss of mid taps), else added by
+        :mod:`simloop.losses`.
         """
         from simloop.losses import proximity_resistance
 
+        if proximity and self.model_proximity is not None:
+            return self.model_proximity.z(frequency_hz)
         extra = proximity_resistance(self.geometry, frequency_hz, self.resistivity_ohm_m) if proximity else None
         return self.model.z(frequency_hz, extra_series_ohm=extra)
 
@@ -294,15 +328,304 @@ def junction_correction(spec, geom: LoopGeometry, mesh: Mesh, env: Environment, 
     return kappa
 
 
-def _turn_perimeter_m(geom: LoopGeometry) -> float:
-    """Wire length of the first (outer) turn. [m]"""
-    kinds = np.array(geom.kinds)
-    return float(geom.lengths_m[(kinds == "winding") & (geom.turn == 0)].sum())
+# ------------------------------------------------------------------------------------------------
+# The sweep with two solvers: the circuit (PEEC) across the band, the MoM where its rules hold
+# ------------------------------------------------------------------------------------------------
+
+#: The circuit solver's mesh is coarsened to about this many segments (it has no pitch rule:
+#: parallel partial inductances are exact at any segment length).
+CIRCUIT_MAX_SEGMENTS = 1500
+#: ... and needs no more than this many segments per turn.
+CIRCUIT_PER_TURN = 36
+#: MoM cross-check solves above the floor are made only while the floor lies below this multiple
+#: of the top of the band (higher up they would sit among the winding's higher resonances).
+CHECK_REACH = 4.0
+#: Above this many segments a direct MoM solve is not attempted (about 1 min and 1 GB each).
+MOM_MAX_SEGMENTS = 6000
+#: Bound of the circuit's retardation error as a multiple of (kD)², D the loop's largest
+#: dimension: the residual against NEC on the three validation loops (tests/validation/
+#: test_circuit_against_nec.py), de-amplified by 1/|1 − (f/f_srf)²|, stayed below 0.75 (kD)².
+RETARDATION_COEF = 1.0
+#: The self-resonance search runs up to this multiple of the top sweep frequency.
+SRF_SEARCH = 40.0
+
+
+@dataclass(frozen=True)
+class SourcePlan:
+    """Which solver covers which part of the band, decided before any solve.
+
+    Attributes
+    ----------
+    circuit_mesh : Mesh
+        Mesh of the circuit solver (the MoM's, or a coarser one of the same path).
+    mom_floor_hz : float
+        Lowest frequency of trusted direct MoM reactance (segments ≥ 7e-5 λ). [Hz]
+    mom_hz : tuple of float
+        Sweep points solved directly by the MoM. [Hz]
+    check_hz : tuple of float
+        Extra MoM solves above the floor to cross-check the circuit (none when sweep points
+        already lie above the floor). [Hz]
+    mom_note : str
+        Why the MoM covers what it covers.
+    """
+
+    circuit_mesh: Mesh
+    mom_floor_hz: float
+    mom_hz: tuple[float, ...]
+    check_hz: tuple[float, ...]
+    mom_note: str
+
+    def coverage(self, start_hz: float, stop_hz: float) -> list[str]:
+        """Plain-language lines: which source covers which part of the band."""
+        mhz = lambda f: f"{f / 1e6:.3f} MHz"  # noqa: E731
+        lines = [f"circuit (PEEC, {self.circuit_mesh.n_segments} segments): every point "
+                 f"{mhz(start_hz)}–{mhz(stop_hz)}"]
+        if self.mom_hz:
+            lines.append(f"mom (direct NEC): {len(self.mom_hz)} points {mhz(min(self.mom_hz))}–"
+                         f"{mhz(max(self.mom_hz))} solved and compared; reported where its error "
+                         f"estimate is the smaller")
+        else:
+            lines.append(f"mom (direct NEC): no sweep point ({self.mom_note})")
+        if self.check_hz:
+            lines.append("mom cross-check above the floor at " + ", ".join(mhz(f) for f in self.check_hz))
+        lines.append("model (fitted lumped L-C): none; the fit to the circuit only serves tuning")
+        return lines
+
+
+def _circuit_mesh(geom: LoopGeometry, mesh: Mesh) -> Mesh:
+    """The MoM's mesh, or a coarser one of the same path: the circuit needs no pitch rule, and
+    CIRCUIT_PER_TURN segments per turn keep its self-resonance within 2e-4 (frame loop: 457, 724
+    and 1220 segments gave 2.22900, 2.22870 and 2.22857 MHz)."""
+    turn_length = geom.winding_length_m / (int(geom.turn.max()) + 1)
+    target = max(mesh.target_m, turn_length / CIRCUIT_PER_TURN,
+                 mesh.target_m * mesh.n_segments / CIRCUIT_MAX_SEGMENTS)
+    if target <= mesh.target_m * (1 + 1e-9):
+        return mesh
+    return build_mesh(geom, target, mesh.quality)
+
+
+def plan_sources(spec, geom: LoopGeometry, mesh: Mesh, direct: bool = False) -> SourcePlan:
+    """Decide the coverage of the band by the circuit and the MoM (no solve)."""
+    f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)
+    floor = mesh.floor_frequency_hz(FLOOR_TRUSTED)
+    cmesh = _circuit_mesh(geom, mesh)
+    if mesh.n_segments > MOM_MAX_SEGMENTS and not direct:
+        return SourcePlan(cmesh, floor, (), (), f"{mesh.n_segments} segments exceed the "
+                          f"{MOM_MAX_SEGMENTS} a direct MoM solve is attempted for")
+    if direct:
+        return SourcePlan(cmesh, floor, tuple(float(f) for f in f_sweep), (), "every point forced")
+    mom = tuple(float(f) for f in f_sweep if f >= floor * (1 - 1e-9))
+    check = () if mom or floor > CHECK_REACH * float(f_sweep.max()) else (1.02 * floor, 1.25 * floor)
+    note = "" if mom else f"the band lies below the MoM's floor {floor / 1e6:.3f} MHz"
+    if not mom and not check:
+        note += f", more than {CHECK_REACH:g} × the top of the band: no cross-check"
+    return SourcePlan(cmesh, floor, mom, tuple(float(f) for f in check), note)
+
+
+@dataclass(frozen=True)
+class CircuitStage:
+    """What the circuit solver gave the sweep."""
+
+    model: CircuitModel
+    z_ohm: np.ndarray  # (n, k, k) at the sweep points, from the reduced model
+    rom_error: float
+    self_resonance_hz: np.ndarray  # (k,), NaN if none below SRF_SEARCH × stop
+    inductance_h: np.ndarray  # (k, k) at ω → 0
+    lumped: LoopModel
+    lumped_proximity: LoopModel
+    seconds: float
+
+
+def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, f_sweep,
+                         resistivity, proximity: bool = False) -> LoopModel:
+    """The lumped L-C model fitted to exact circuit solves (skin loss only, as from the MoM), for
+    tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds), or
+    0.1–0.5 × the resonance if the band starts above that."""
+    top = np.nanmin(srf) if np.any(np.isfinite(srf)) else np.inf
+    lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top)
+    if hi < 1.3 * lo:
+        lo, hi = 0.1 * top, 0.5 * top
+    fit_hz = np.geomspace(lo, hi, WINDOW_POINTS)
+    circuit = cm if proximity else cm.with_proximity(False)
+    y = np.array([np.linalg.inv(circuit.solve(f).z_ohm) for f in fit_hz])
+    return fit_loop_model(fit_hz, y, geom.wire_radius_m, resistivity)
+
+
+def _circuit_stage(geom: LoopGeometry, plan: SourcePlan, env: Environment, f_sweep,
+                   progress=None) -> CircuitStage:
+    import time
+
+    t0 = time.perf_counter()
+    if progress:
+        progress("circuit", 0, 3)
+    cm = build_circuit(plan.circuit_mesh, resistivity_ohm_m=env.resistivity_ohm_m, proximity=True)
+    if progress:
+        progress("circuit", 1, 3)
+    rom = cm.reduced_model(float(f_sweep.min()), float(f_sweep.max()))
+    z = rom.z(f_sweep)
+    srf = np.array(cm.self_resonances_hz(SRF_SEARCH * float(f_sweep.max()), float(f_sweep.min()) / 4),
+                   dtype=float)
+    if progress:
+        progress("circuit", 2, 3)
+    f_low = float(f_sweep.min()) / 100
+    l0 = cm.solve(f_low).z_ohm.imag / (2 * np.pi * f_low)
+    lumped = _lumped_from_circuit(cm, geom, srf, f_sweep, env.resistivity_ohm_m)
+    lumped_p = _lumped_from_circuit(cm, geom, srf, f_sweep, env.resistivity_ohm_m, proximity=True)
+    if progress:
+        progress("circuit", 3, 3)
+    return CircuitStage(cm, z, rom.error, srf, l0, lumped, lumped_p, time.perf_counter() - t0)
+
+
+def _mom_stage(mesh: Mesh, env: Environment, freqs, workers, cache, progress):
+    """Direct MoM solves: {frequency: PortSolution}, their records and the failures."""
+    solved: dict[float, PortSolution] = {}
+    records: list[SolveRecord] = []
+    failures: dict[float, SolverError] = {}
+    freqs = [float(f) for f in freqs]
+    if not freqs:
+        return solved, records, failures
+    cb = (lambda d, t: progress("mom", d, t)) if progress else None
+    for f, res in zip(freqs, solve_ports(mesh, env, freqs, workers=workers, cache=cache, progress=cb)):
+        if isinstance(res, SolverError):
+            failures[f] = res
+            continue
+        solved[f] = res
+        records.append(SolveRecord(f, "direct", res.seconds, res.cached, res.asymmetry,
+                                   mesh.shortest_m * f / C0))
+    return solved, records, failures
+
+
+def _amplification(f, srf) -> np.ndarray:
+    """1/|1 − (f/f_srf)²| per frequency and tap, shape (n, k); 1 where no resonance is known."""
+    f = np.atleast_1d(np.asarray(f, dtype=float))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        amp = 1.0 / np.abs(1.0 - (f[:, None] / srf[None, :]) ** 2)
+    return np.where(np.isfinite(amp), amp, 1.0)
+
+
+def _mom_difference(circ: CircuitStage, solved: dict, end_tap: np.ndarray) -> np.ndarray:
+    """max |Z_ii(mom)/Z_ii(circuit) − 1| over the MoM solves, de-amplified, per tap (NaN: none).
+
+    Both sides near the resonance differ as the amplification 1/|1 − (f/f_srf)²| times the
+    difference of their L and C, so the de-amplified value is comparable across frequencies.
+    """
+    k = circ.z_ohm.shape[1]
+    out = np.full(k, np.nan)
+    for f, sol in solved.items():
+        z_c = circ.model.solve(f).z_ohm
+        amp = _amplification([f], circ.self_resonance_hz)[0]
+        d = np.abs(np.diag(sol.z) / np.diag(z_c) - 1.0) / amp
+        out = np.fmax(out, d)
+    return out
+
+
+def _mom_self_resonance(circ: CircuitStage, solved: dict) -> np.ndarray:
+    """The MoM's self-resonance per tap, inferred from direct solves near it (NaN: none usable).
+
+    With equal L0 on both sides, X_mom/X_circ = (1 − (f/s_c)²)/(1 − (f/s_m)²); solved for s_m at
+    the MoM solve closest to the circuit's resonance s_c (within a factor 1.6).
+    """
+    srf = circ.self_resonance_hz
+    out = np.full(srf.size, np.nan)
+    for i, s_c in enumerate(srf):
+        near = [f for f in solved if np.isfinite(s_c) and abs(np.log(f / s_c)) < np.log(1.6)]
+        if not near:
+            continue
+        f = min(near, key=lambda g: abs(np.log(g / s_c)))
+        ratio = solved[f].z[i, i].imag / circ.model.solve(f).z_ohm[i, i].imag
+        inner = 1.0 - (1.0 - (f / s_c) ** 2) / ratio
+        if inner > 0:
+            out[i] = f / np.sqrt(inner)
+    return out
+
+
+def filament_error(geom: LoopGeometry) -> float:
+    r"""Order-of-magnitude error of the filament (thin-wire) approximation at the winding's pitch. [-]
+
+    The circuit carries each wire's current on its axis (exact for the mutual inductance of round
+    wires with rotationally symmetric current); close turns crowd the current (the proximity
+    effect), which changes the field energy near the wires. Estimated as the relative change of
+    the surface current energy of two wires at the pitch, R_p/R_0 (exact two-wire solution), times
+    the share of the inductance stored within about a pitch of the wire, 1/(2 ln(l_turn/a)).
+    Not measured against a finer model; 5e-4 at a pitch of 8 diameters.
+    """
+    if geom.turn.max() < 1:
+        return 0.0
+    ca = geom.pitch_m / (2 * geom.wire_radius_m)
+    turn_len = geom.winding_length_m / (int(geom.turn.max()) + 1)
+    factor = float(reference.proximity_factor_two_wires_exact(ca))
+    return factor / (2 * np.log(turn_len / geom.wire_radius_m))
+
+
+def ground_effect(geom: LoopGeometry, env: Environment) -> np.ndarray:
+    """Relative change of each tap's L0 by a perfectly conducting ground's image, shape (k,). [-]
+
+    The circuit solver works in free space; over ground this bounds what it leaves out of L0
+    (a real ground at MF reflects less than a perfect one). The image of a current element at
+    height z is the mirrored element with its horizontal components reversed.
+    """
+    k = len(geom.tap_turns)
+    if env.ground == "free-space":
+        return np.zeros(k)
+    out = np.zeros(k)
+    for i in range(k):
+        s, e = geom.current_path(i)
+        flip = np.array([1.0, 1.0, -1.0])
+        ms, me = s * flip - [0, 0, 2 * env.height_m], e * flip - [0, 0, 2 * env.height_m]
+        # image current = −(mirrored direction): swap the mirrored piece's ends
+        a0, a1 = s[:, None, :], e[:, None, :]
+        m = reference.mutual_inductance_filaments(a0, a1, me[None, :, :], ms[None, :, :])
+        out[i] = abs(float(m.sum())) / reference.inductance_partial_sum(s, e, geom.wire_radius_m)
+    return out
+
+
+def _loop_size_m(geom: LoopGeometry) -> float:
+    pts = np.concatenate([geom.starts, geom.ends])
+    return float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0)))
+
+
+def _point_errors(geom, mesh, env, circ: CircuitStage, f_sweep, d_mom, end_tap, asym):
+    """Relative |Z| error estimates per point and tap: (circuit, mom) each (n, k)."""
+    amp = _amplification(f_sweep, circ.self_resonance_hz)
+    ret = RETARDATION_COEF * (2 * np.pi * f_sweep / C0 * _loop_size_m(geom)) ** 2
+    d_end = float(np.nanmax(np.where(end_tap, d_mom, np.nan))) if np.any(np.isfinite(d_mom[end_tap])) else 0.0
+    base_c = np.sqrt(ret[:, None] ** 2 + filament_error(geom) ** 2 + circ.rom_error**2 + d_end**2
+                     + ground_effect(geom, env)[None, :] ** 2)
+    eps_c = np.minimum(base_c * amp, 1.0)
+    mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if geom.turn.max() >= 1 else 2e-3
+    brk = np.array([breakdown_error(mesh.shortest_m * f / C0) for f in f_sweep])
+    junction = np.where(end_tap, 0.0, np.nan_to_num(d_mom, nan=0.0))
+    # the measured MoM–circuit difference is charged to both sides: it does not say which is off
+    eps_m = np.sqrt(mesh_bias**2 + brk[:, None] ** 2 + junction[None, :] ** 2 + d_end**2) * amp
+    eps_m = np.where(asym > ASYMMETRY_LIMIT, 1.0, np.minimum(eps_m, 1.0))
+    return eps_c, eps_m
+
+
+def _assemble(f_sweep, circ: CircuitStage, solved: dict, eps_c, eps_m, direct: bool):
+    """Pick each point's source (the smaller error estimate; the MoM everywhere if ``direct``)."""
+    n, k = eps_c.shape
+    z = circ.z_ohm.copy()
+    source = np.full(n, "circuit", dtype=object)
+    eps = eps_c.copy()
+    for m, f in enumerate(f_sweep):
+        key = next((g for g in solved if abs(g - f) <= 1e-9 * f), None)
+        if key is None:
+            continue
+        if direct or eps_m[m].max() < eps_c[m].max():
+            z[m] = solved[key].z
+            source[m] = "mom"
+            eps[m] = eps_m[m]
+    return z, source.astype(str), eps
 
 
 def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = None,
               progress=None, direct: bool = False, correct_junctions: bool = True) -> SweepResult:
     """Sweep the impedance of every tap of a loop spec.
+
+    Stages: plan the coverage (:func:`plan_sources`); the circuit solver over the whole band
+    (reduced-order model, self-resonances, L0, a lumped fit for tuning); direct MoM solves where
+    its rules hold (and a cross-check above its floor); the measured MoM–circuit difference; each
+    point's source and error estimate.
 
     Parameters
     ----------
@@ -310,162 +633,52 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     workers : int, optional
         Worker processes for the MoM solves.
     cache : SolveCache, optional
-        Store of solved frequencies; a rerun re-uses every frequency already solved.
+        Store of solved MoM frequencies.
     progress : callable, optional
         ``progress(stage, done, total)``.
     direct : bool
-        Solve every sweep point directly, below the floor too (for studies of the breakdown);
-        such points carry the breakdown error estimate and are flagged unreliable.
+        Solve every sweep point directly with the MoM, below its floor too, and report those (for
+        studies of the breakdown; such points carry the breakdown error and are flagged).
     correct_junctions : bool
-        Remove the junction bias of mid-winding taps (:func:`junction_correction`).
+        Kept for callers; the circuit solver needs no junction correction (taps are node pairs),
+        and the NEC junction bias is measured against it instead (``mom_difference``).
     """
     geom, mesh, rules = prepare(spec)
     env = environment_from_spec(spec)
-    resistivity = env.resistivity_ohm_m
-    solved: dict[float, PortSolution] = {}
-    records: list[SolveRecord] = []
-    failed: list[SolveFailure] = []
-
-    def solve(freqs, role):
-        freqs = _unique(freqs, solved)
-        if not freqs:
-            return {}
-        cb = (lambda d, t: progress(role, d, t)) if progress else None
-        out = solve_ports(mesh, env, freqs, workers=workers, cache=cache, progress=cb)
-        failures = {}
-        for f, res in zip(freqs, out):
-            if isinstance(res, SolverError):
-                failures[f] = res
-                failed.append(SolveFailure(f, role, str(res)))
-                continue
-            solved[f] = res
-            records.append(SolveRecord(f, role, res.seconds, res.cached, res.asymmetry,
-                                       mesh.shortest_m * f / C0))
-        return failures
-
-    f7 = mesh.floor_frequency_hz(FLOOR_TRUSTED)
-    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
-    note = ""
-
-    # 1. Probe at the floors to locate the self-resonance.
-    probe = [f5, f7]
-    failures = solve(probe, "probe")
-    ok = [f for f in probe if f in solved]
-    if len(ok) < 2:
-        raise SolverError(f"the MoM probe solves failed: {'; '.join(map(str, failures.values()))}")
-    x_probe = np.array([solved[f].z.diagonal().imag for f in ok])
-    if np.any(x_probe <= 0):
-        if np.all(x_probe[0] > 0):  # resonance between the two floors: fit on the lower side only
-            probe = [f5, 1.1 * f5]
-            solve(probe, "probe")
-            ok = [f for f in probe if f in solved]
-            x_probe = np.array([solved[f].z.diagonal().imag for f in ok]) if len(ok) == 2 else None
-        if x_probe is None or np.any(x_probe <= 0):
-            raise SolverError(
-                f"the loop self-resonates below {f5 / 1e6:.3f} MHz, the lowest frequency this mesh "
-                f"can be solved at (segments ≥ 5e-5 λ): no valid fit window. Use a larger pitch or "
-                f"fewer turns, or a coarser mesh (mesh.quality = \"draft\").")
-    model = fit_loop_model(ok, np.array([solved[f].y for f in ok]), geom.wire_radius_m, resistivity)
-    srf = _lowest_resonance(model, 40 * f7)
-
-    # 2. The fit window, moved once more if the fitted resonance lands below the first guess.
-    # The fitted radiation term is the small-loop law (∝ f⁴), which holds only while a turn is
-    # electrically small: the window stays below perimeter ≤ SMALL_LOOP_PERIMETER λ (Balanis).
-    f_small = SMALL_LOOP_PERIMETER * C0 / _turn_perimeter_m(geom)
-    for _ in range(3):
-        f_hi = min(WINDOW_TOP * srf if srf is not None else 1.6 * f7, f_small)
-        f_lo = f7
-        if f_lo > f_hi / 1.3:
-            f_lo = max(f5, f_hi / 1.3)
-            if f_lo > f_hi / 1.3:
-                f_hi = 1.3 * f_lo
-                note = (f"fit window {f_lo / 1e6:.3f}–{f_hi / 1e6:.3f} MHz reaches above "
-                        f"{WINDOW_TOP} × self-resonance; model points are less certain")
-            else:
-                note = "floor relaxed towards 5e-5 λ to fit below 0.6 × self-resonance"
-        inside = [f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9)]
-        # WINDOW_POINTS spread over the whole window; a point already solved nearby stands in.
-        window = [float(f) for f in np.geomspace(f_lo, f_hi, WINDOW_POINTS)
-                  if all(abs(f / g - 1) > 0.03 for g in inside)]
-        solve(window, "window")
-        fit_hz = sorted(f for f in solved if f_lo * (1 - 1e-9) <= f <= f_hi * (1 + 1e-9))
-        if len(fit_hz) < 2:
-            raise SolverError("fewer than two window solves succeeded; the loop model cannot be fitted")
-        model = fit_loop_model(fit_hz, np.array([solved[f].y for f in fit_hz]), geom.wire_radius_m,
-                               resistivity)
-        srf_new = _lowest_resonance(model, 40 * f_hi)
-        if srf_new is None or f_hi <= 1.05 * WINDOW_TOP * srf_new or f_lo >= f_hi / 1.3 * 0.999:
-            break
-        srf = srf_new
-
-    # 3. Direct MoM above the floor.
     f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)
-    floor = 0.0 if direct else f7
-    lost = solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
-
-    # 4. Junction correction: each tap's own circuit, without the open wires hanging from it.
+    plan = plan_sources(spec, geom, mesh, direct=direct)
+    circ = _circuit_stage(geom, plan, env, f_sweep, progress)
+    solved, records, failures = _mom_stage(mesh, env, plan.mom_hz + plan.check_hz, workers, cache, progress)
     k = len(geom.tap_turns)
-    raw_l0 = np.diag(model.inductance_h).copy()
-    kappa = junction_correction(spec, geom, mesh, env, model, fit_hz, resistivity, workers, cache,
-                                progress) if correct_junctions else np.ones(k)
-    scale = np.sqrt(kappa)
-    model = model.scaled(scale)
-    for f in solved:
-        solved[f] = solved[f].scaled(scale)
-    srf_taps = np.array([model.self_resonance_hz(i, 40 * f_hi) for i in range(k)], dtype=float)  # None → NaN
+    end_tap = np.array([n == spec.winding.turns for n in geom.tap_turns])
+    d_mom = _mom_difference(circ, solved, end_tap)
+    asym = max((r.asymmetry for r in records), default=0.0)
+    eps_c, eps_m = _point_errors(geom, mesh, env, circ, f_sweep, d_mom, end_tap, asym)
+    z, source, eps = _assemble(f_sweep, circ, solved, eps_c, eps_m, direct)
     l_qs = np.array([reference.inductance_partial_sum(*geom.current_path(i), geom.wire_radius_m)
                      for i in range(k)])
-    l_fit = np.diag(model.inductance_h)
-    mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if spec.winding.turns > 1 else 2e-3
-    eps_mesh = np.maximum(mesh_bias, np.abs(l_fit / l_qs - 1.0))
-    eps_floor_fit = breakdown_error(mesh.shortest_m * min(fit_hz) / C0)
-    eps_l = np.sqrt(eps_mesh**2 + eps_floor_fit**2 + model.fit_residual**2 + model.extrapolation_spread**2)
-    worst_asymmetry = max(r.asymmetry for r in records)
-    n = f_sweep.size
-    z = np.zeros((n, k, k), dtype=complex)
-    source = np.empty(n, dtype=object)
-    eps = np.zeros((n, k))
-    z_model = model.z(f_sweep)
-    with np.errstate(divide="ignore"):
-        amplify = np.where(np.isfinite(srf_taps), 1.0 / np.abs(1.0 - (f_sweep[:, None] / srf_taps) ** 2), 1.0)
-    for m, f in enumerate(f_sweep):
-        key = next((g for g in solved if abs(g - f) <= 1e-9 * f), None)
-        if key is not None and f >= floor * (1 - 1e-9):
-            z[m] = solved[key].z
-            source[m] = "mom"
-            base = np.sqrt(eps_mesh**2 + breakdown_error(mesh.shortest_m * f / C0) ** 2)
-        else:
-            z[m] = z_model[m]
-            source[m] = "model"
-            base = eps_l
-        eps[m] = np.minimum(base * amplify[m], 1.0)
-        if any(abs(g - f) <= 1e-9 * f for g in lost):  # its direct solve failed: no backing
-            eps[m] = 1.0
-    if worst_asymmetry > ASYMMETRY_LIMIT:
-        eps[:] = 1.0
-        note = (note + "; " if note else "") + (
-            f"port matrix reciprocity defect {worst_asymmetry:.0%} exceeds {ASYMMETRY_LIMIT:.0%}: "
-            f"all points unreliable")
-    reliable = eps < RELIABLE_BELOW
+    l0 = np.diag(circ.inductance_h)
+    l_fit = np.diag(circ.lumped.inductance_h)  # what SweepResult.inductance_h reports
+    off = np.maximum(np.abs(l0 / l_qs - 1.0), np.abs(l_fit / l_qs - 1.0))
+    eps_l = np.sqrt(filament_error(geom) ** 2 + circ.rom_error**2 + off**2)
+    # A failed MoM solve leaves its points without the cross-check they were to get: they are
+    # never reported as reliable (the run says so and exits non-zero unless told to carry on).
+    lost = np.array([any(abs(g - f) <= 1e-9 * f for g in failures) for f in f_sweep], dtype=bool)
+    eps[lost] = 1.0
+    notes = [f"MoM solve failed at {f / 1e6:.3f} MHz: {e}" for f, e in failures.items()]
+    if asym > ASYMMETRY_LIMIT:
+        notes.append(f"MoM port matrix reciprocity defect {asym:.0%} exceeds {ASYMMETRY_LIMIT:.0%}: "
+                     f"MoM points unreliable")
     return SweepResult(
-        name=spec.name,
-        frequencies_hz=f_sweep,
-        z_ohm=z,
-        source=source.astype(str),
-        error_estimate=eps,
-        reliable=reliable,
-        tap_turns=geom.tap_turns,
-        model=model,
-        self_resonance_hz=srf_taps,
-        inductance_error=eps_l,
-        quasi_static_inductance_h=l_qs,
-        junction_correction=kappa,
-        uncorrected_inductance_h=raw_l0,
-        geometry=geom,
-        mesh=mesh,
-        rules=tuple(rules),
-        solves=tuple(sorted(records, key=lambda r: r.frequency_hz)),
-        window_note=note,
-        environment=env,
-        failures=tuple(sorted(failed, key=lambda r: r.frequency_hz)),
-    )
+        name=spec.name, frequencies_hz=f_sweep, z_ohm=z, source=source, error_estimate=eps,
+        reliable=eps < RELIABLE_BELOW, tap_turns=geom.tap_turns, model=circ.lumped,
+        self_resonance_hz=circ.self_resonance_hz, inductance_error=eps_l,
+        quasi_static_inductance_h=l_qs, junction_correction=np.ones(k), uncorrected_inductance_h=l0,
+        geometry=geom, mesh=mesh, rules=tuple(rules),
+        solves=tuple(sorted(records, key=lambda r: r.frequency_hz)), window_note="; ".join(notes),
+        environment=env, circuit_rom_error=circ.rom_error, mom_difference=d_mom,
+        mom_self_resonance_hz=_mom_self_resonance(circ, solved),
+        coverage=tuple(plan.coverage(float(f_sweep.min()), float(f_sweep.max()))),
+        circuit_segments=plan.circuit_mesh.n_segments, circuit_seconds=circ.seconds,
+        circuit_inductance_h=circ.inductance_h, circuit=circ.model, model_proximity=circ.lumped_proximity,
+        failures=tuple(SolveFailure(f, "direct", str(e)) for f, e in sorted(failures.items())))

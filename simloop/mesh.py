@@ -288,7 +288,7 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
     else:
         status = "warn"
         detail = (f"direct MoM reactance is trusted only above {f_floor / 1e6:.3f} MHz (Δ ≥ 7e-5 λ); "
-                  f"sweep points below it come from the fitted model")
+                  f"sweep points below it come from the circuit solver")
     rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail))
     n = mesh.n_segments
     seconds, memory_b = solve_cost(n)

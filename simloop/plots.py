@@ -17,7 +17,7 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
     """R and X of every tap against frequency.
 
     Filled markers are reliable points, hollow grey-edged markers unreliable ones; circles are
-    direct MoM solves, squares values of the fitted model.
+    direct MoM solves, squares values of the circuit solver (or the fitted model).
     """
     f_mhz = result.frequencies_hz / 1e6
     fig, (ax_x, ax_r) = plt.subplots(2, 1, figsize=(8, 7.5), sharex=True, constrained_layout=True)
@@ -39,7 +39,7 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
             label += f", SRF {srf / 1e6:.2f} MHz"
         ax_x.plot([], [], "-", color=c, label=label)
     ax_x.plot([], [], "ko", ms=5, ls="none", label="direct MoM")
-    ax_x.plot([], [], "ks", ms=5, ls="none", label="fitted model")
+    ax_x.plot([], [], "ks", ms=5, ls="none", label="circuit solver (PEEC)")
     ax_x.plot([], [], "ko", mfc="none", ms=6, ls="none", label=f"unreliable (error ≥ {RELIABLE_BELOW:.0%})")
     ax_x.set_ylabel("reactance X [Ω]")
     ax_x.legend(fontsize=8, loc="upper left")
@@ -52,7 +52,7 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
     ax_r.set_xlabel("frequency [MHz]")
     ax_r.grid(alpha=0.3, which="both")
     ax_x.set_title(f"{result.name}: tap impedance, other taps open "
-                   f"({result.mesh.n_segments} segments, {result.geometry.wire_length_m:.2f} m of wire)")
+                   f"({result.geometry.wire_length_m:.2f} m of wire)")
     fig.savefig(path, dpi=110)
     plt.close(fig)
     return path

@@ -243,6 +243,9 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
             "reliable": [bool(v) for v in result.reliable[:, i]],
             "source": [str(s) for s in result.source],
             "error_estimate": [float(e) for e in result.error_estimate[:, i]],
+            "mom_difference": _num(result.mom_difference[i]) if result.mom_difference.size else None,
+            "mom_self_resonance_hz": (_num(result.mom_self_resonance_hz[i])
+                                      if result.mom_self_resonance_hz.size else None),
         }
     m = result.model
     return {
@@ -255,13 +258,20 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
         "taps": taps,
         "impedance_matrix_ohm": _pairs(result.z_ohm),
         "model": {
-            "form": "Y = (R_s + jωL0)^-1 + jωC, fitted to ω·Im Y = -L0^-1 + ω²C",
+            "form": "Y = (R_s + jωL0)^-1 + jωC, fitted to ω·Im Y = -L0^-1 + ω²C of circuit solves",
             "fit_frequencies_hz": [float(f) for f in m.fit_hz],
             "fit_residual": m.fit_residual,
             "extrapolation_spread": m.extrapolation_spread,
             "inductance_matrix_h": m.inductance_h.tolist(),
             "capacitance_matrix_f": m.capacitance_f.tolist(),
             "note": result.window_note,
+        },
+        "circuit": {
+            "solver": "PEEC (quasi-static partial element equivalent circuit, Ruehli 1974)",
+            "segments": result.circuit_segments,
+            "seconds": result.circuit_seconds,
+            "reduced_model_error": _num(result.circuit_rom_error),
+            "coverage": list(result.coverage),
         },
         "mesh": mesh_summary(result),
         "environment": result.environment.as_payload(),

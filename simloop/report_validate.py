@@ -35,12 +35,14 @@ def validation_dict(result: ValidationResult) -> dict:
             "tap": c.tap,
             "frequency_hz": _num(c.frequency_hz),
             "mom": _num(c.mom),
+            "circuit": _num(c.circuit),
             "quasi_static": _num(c.quasi_static),
             "handbook": _num(c.handbook),
-            "source": {"mom": c.source_mom, "quasi_static": c.source_quasi_static,
-                       "handbook": c.source_handbook},
+            "source": {"mom": c.source_mom, "circuit": c.source_circuit,
+                       "quasi_static": c.source_quasi_static, "handbook": c.source_handbook},
             "reference": c.reference,
-            "rel_diff": {"mom": _num(c.rel_diff_mom), "handbook": _num(c.rel_diff_handbook)},
+            "rel_diff": {"mom": _num(c.rel_diff_mom), "circuit": _num(c.rel_diff_circuit),
+                         "handbook": _num(c.rel_diff_handbook)},
             "flag": c.flag,
             "note": c.note,
         })
@@ -170,14 +172,14 @@ def format_validate_table(result: ValidationResult) -> str:
                  f"turns), {result.style} winding, {result.ground}")
     lines.append(f"mesh: {m.segments} segments, winding segment {m.winding_segment_m * 1e3:.2f} mm = "
                  f"{m.segment_over_pitch:.2f} × pitch; direct MoM trusted above {m.floor_hz / 1e6:.3f} MHz")
-    lines.append(f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the sweep's fit "
-                 f"window, above the breakdown floor)")
-    lines.append("MoM = method of moments; QS = quasi-static model of the real wire path (no MoM); "
-                 "HB = handbook formula")
-    lines.append("ΔMoM, ΔHB: relative difference from QS (from MoM where QS has no value); "
+    lines.append(f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the band below "
+                 f"0.6 × self-resonance; MoM only above its floor)")
+    lines.append("MoM = method of moments; PEEC = circuit solver of the same path (what the sweep reports); "
+                 "QS = quasi-static formulas of the real wire path; HB = handbook formula")
+    lines.append("ΔMoM, ΔPEEC, ΔHB: relative difference from QS (from MoM where QS has no value); "
                  "series values have the fitted self-capacitance removed")
-    header = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'QS':>12}  {'HB':>12}  "
-              f"{'ΔMoM':>8}  {'ΔHB':>8}  src")
+    header = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'PEEC':>12}  {'QS':>12}  {'HB':>12}  "
+              f"{'ΔMoM':>8}  {'ΔPEEC':>8}  {'ΔHB':>8}  src")
     for i, n in enumerate(result.tap_turns):
         v = result.tap_verdicts[n]
         lines.append("")
@@ -196,10 +198,11 @@ def format_validate_table(result: ValidationResult) -> str:
             hb_d = _pct(c.rel_diff_handbook)
             if c.reference == "mom" and c.rel_diff_handbook is not None:
                 hb_d += "*"
-            s = "/".join(src(x) for x in (c.source_mom, c.source_quasi_static, c.source_handbook))
+            s = "/".join(src(x) for x in (c.source_mom, c.source_circuit, c.source_quasi_static, c.source_handbook))
             lines.append(f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
+                         f"{_si(c.circuit, c.unit):>12}  "
                          f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
-                         f"{_pct(c.rel_diff_mom):>8}  {hb_d:>8}  {s}")
+                         f"{_pct(c.rel_diff_mom):>8}  {_pct(c.rel_diff_circuit):>8}  {hb_d:>8}  {s}")
         for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.note):
             lines.append(f"  {c.quantity}: {c.note}")
         flagged = next((c for c in result.checks if c.tap == n and c.flag), None)

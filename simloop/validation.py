@@ -53,7 +53,7 @@ from simloop import reference
 from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
 from simloop.geometry import LoopGeometry
-from simloop.impedance import ASYMMETRY_LIMIT, WINDOW_TOP, SweepResult
+from simloop.impedance import ASYMMETRY_LIMIT, MOM_MAX_SEGMENTS, WINDOW_TOP, SweepResult
 from simloop.losses import proximity_factors, proximity_resistance, winding_length_to_turn
 from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
 from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
@@ -315,6 +315,18 @@ class Check:
     rel_diff_handbook: float | None
     flag: str | None = None
     note: str = ""
+    circuit: float | None = None
+    source_circuit: str | None = None
+    rel_diff_circuit: float | None = None
+
+
+def _with_circuit(check: Check, value, source: str) -> Check:
+    """The check with its circuit-solver column filled (relative to its reference column)."""
+    if value is None or not np.isfinite(value):
+        return check
+    ref = check.quasi_static if check.quasi_static is not None else check.handbook
+    return dataclasses.replace(check, circuit=float(value), source_circuit=source,
+                               rel_diff_circuit=_rel(float(value), ref))
 
 
 @dataclass(frozen=True)
@@ -566,6 +578,35 @@ def _formula_resistances(sweep: SweepResult, i: int, tf: _TapFormulas, f: float)
     return out
 
 
+_SRC_CIRCUIT = "circuit solver (PEEC of the same path; series branch, fitted shunt C removed)"
+
+
+def _circuit_values(circuits, sweep: SweepResult, f: float) -> list[dict]:
+    """Per tap: the circuit solver's series L, R_rad, wire loss and Q at f (keys as Check.quantity).
+
+    Like the MoM column: series branch with the fitted shunt C removed; radiation resistance from
+    the lossless circuit's series branch, wire loss as lossy − lossless."""
+    with_prox, skin_only, lossless = circuits
+    cap = sweep.model.capacitance_f
+    w = 2 * np.pi * f
+    zs0 = _series(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
+    zsp = _series(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
+    zsl = _series(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
+    out = []
+    for i in range(zs0.shape[0]):
+        rr = float(zsl[i, i].real)
+        out.append({"L": zs0[i, i].imag / w, "R_rad": rr, "R_loss skin": zs0[i, i].real - rr,
+                    "R_loss skin+prox": zsp[i, i].real - rr, "Q skin": zs0[i, i].imag / zs0[i, i].real,
+                    "Q skin+prox": zsp[i, i].imag / zsp[i, i].real, "Q tune": zsp[i, i].imag / zsp[i, i].real})
+    return out
+
+
+def _add_circuit(rows: list[Check], values: dict | None) -> list[Check]:
+    if not values:
+        return rows
+    return [_with_circuit(r, values.get(r.quantity), _SRC_CIRCUIT) for r in rows]
+
+
 def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lossy, lossless,
                       agt: float | None) -> list[Check]:
     """L, radiation resistance, wire loss and Q of tap i at one MoM frequency."""
@@ -646,16 +687,18 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
 def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[Check]:
     """The Q tune uses, at the bottom, middle and top of the band: fitted model + proximity."""
     band = [spec.sweep.start_hz, 0.5 * (spec.sweep.start_hz + spec.sweep.stop_hz), spec.sweep.stop_hz]
-    r_model = sweep.model.series_resistance(band)[:, i, i]
+    mp = sweep.model_proximity
+    r_model = (mp if mp is not None else sweep.model).series_resistance(band)[:, i, i]
+    l_tune = mp.inductance_h[i, i] if mp is not None else sweep.inductance_h[i]
     rows = []
     for b, f in enumerate(band):
         w = 2 * np.pi * f
         fr = _formula_resistances(sweep, i, tf, f)
-        r_tot = r_model[b] + fr["prox"]
-        rows.append(_check("Q tune", "-", tf.turns, f, w * sweep.inductance_h[i] / r_tot if r_tot > 0 else None,
+        r_tot = r_model[b] + (0.0 if mp is not None else fr["prox"])
+        rows.append(_check("Q tune", "-", tf.turns, f, w * l_tune / r_tot if r_tot > 0 else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "fitted MoM model + proximity term: ωL0/(R_s + R_prox), what tune uses",
+                           "lumped model fitted to the circuit with its proximity loss: ωL0/R_s, what tune uses",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
                            "ωL_hb / (Smith 1972 loss + Balanis R_rad)"))
     return rows
@@ -770,30 +813,39 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
             requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
         return index[key]
 
-    agt_f = freqs[-1]
-    i_lossy = {f: add(mesh, env, f) for f in freqs}  # the sweep's window solves: cache hits
-    i_ff = add(mesh, free_lossless, agt_f, "far_field")
+    # The MoM is checked where it can be: at most MOM_MAX_SEGMENTS, above its absolute floor.
+    mom_ok = mesh.n_segments <= MOM_MAX_SEGMENTS
+    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
+    f7 = mesh.floor_frequency_hz(FLOOR_TRUSTED)
+    mom_freqs = [f for f in freqs if f >= f5] if mom_ok else []
+    if not mom_ok:
+        notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
+                     f"MoM solve is attempted for; the circuit solver is checked against the formulas")
+    elif len(mom_freqs) < len(freqs):
+        notes.append(f"MoM column empty below its floor {f5 / 1e6:.3f} MHz (segments < 5e-5 λ)")
+    agt_f = max(freqs[-1], f7)
+    i_lossy = {f: add(mesh, env, f) for f in mom_freqs}
+    i_ff = add(mesh, free_lossless, agt_f, "far_field") if mom_ok else None
     if rho is None:
         i_lossless = dict(i_lossy)
     else:
-        i_lossless = {f: add(mesh, lossless_env, f) for f in freqs
+        i_lossless = {f: add(mesh, lossless_env, f) for f in mom_freqs
                       if not (ground == "free-space" and f == agt_f)}
-    # Direct MoM self-resonance: bracket either side of each distinct model prediction.
+    # Direct MoM self-resonance: bracket either side of each distinct circuit prediction.
     srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
-    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
     i_srf: dict[float, int] = {}
-    for f in srf_model[np.isfinite(srf_model)]:
+    for f in srf_model[np.isfinite(srf_model)] if mom_ok else []:
         for g in (f * (1 - SRF_BRACKET), f * (1 + SRF_BRACKET)):
             if g >= f5 and all(abs(g / b - 1) > 1e-6 for b in i_srf):
                 i_srf[float(g)] = add(mesh, env, g)
-    plan = _convergence_plan(sweep) if convergence else None
+    plan = _convergence_plan(sweep) if convergence and mom_ok else None
     if plan is not None:
         notes += plan["notes"]
         i_conv = {label: add(m, env, plan["frequency_hz"]) for label, m in plan["meshes"]}
     results = solve_many(requests, workers=workers, cache=cache,
                          progress=(lambda d, t: progress("validate", d, t)) if progress else None)
     lossy = {f: results[j] for f, j in i_lossy.items()}
-    ff = results[i_ff]
+    ff = results[i_ff] if i_ff is not None else SolverError("no MoM: mesh too large")
     lossless = {f: results[j] for f, j in i_lossless.items()}
     if ground == "free-space" and rho is not None and not isinstance(ff, SolverError):
         lossless[agt_f] = ff  # the same lossless free-space factorisation
@@ -802,21 +854,37 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
     notes += [f"solve failed, checks that need it are omitted: {m}" for m in failed]
 
     # --- Rows ---------------------------------------------------------------------------------
-    agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f)
+    agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f) if mom_ok else ([], {}, [])
     notes += agt_notes
+    circuits = None if sweep.circuit is None else (
+        sweep.circuit, sweep.circuit.with_proximity(False),
+        dataclasses.replace(sweep.circuit, resistivity_ohm_m=None))
+    cache_c: dict[float, list] = {}
+
+    def circ_values(f):
+        if circuits is None:
+            return [None] * len(sweep.tap_turns)
+        if f not in cache_c:
+            cache_c[f] = _circuit_values(circuits, sweep, f)
+        return cache_c[f]
+
+    circ_l0 = [None if sweep.circuit is None else {"L0": float(sweep.circuit_inductance_h[i, i])}
+               for i in range(len(sweep.tap_turns))]
     checks: list[Check] = []
     for i, n in enumerate(sweep.tap_turns):
         tf = _tap_formulas(spec, sweep, i)
         l0_note = f"sweep error estimate ±{sweep.inductance_error[i]:.1%}"
         if tf.l_sheet is not None:
             l0_note += f"; bare current-sheet formula without the round-wire correction: {tf.l_sheet * 1e6:.3f} µH"
-        checks.append(_check("L0", "H", n, None, sweep.inductance_h[i], tf.l_qs, tf.l_hb,
-                             "fitted MoM model (sweep), L0", _SRC_QS_L, tf.src_hb, note=l0_note))
+        l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, "fitted MoM model (sweep), L0",
+                        _SRC_QS_L, tf.src_hb, note=l0_note)
+        checks.append(_add_circuit([l0_row], circ_l0[i])[0])
         for f in freqs:
-            checks += _frequency_checks(sweep, i, tf, f, lossy.get(f), lossless.get(f),
-                                        agt_by_tap.get(i) if f == agt_f else None)
-        checks += _band_q_checks(spec, sweep, i, tf)
-        checks.append(_srf_check(spec, sweep, i, srf_solves))
+            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, lossy.get(f), lossless.get(f),
+                                                     agt_by_tap.get(i) if f == agt_f else None),
+                                   circ_values(f)[i])
+        checks += [_add_circuit([r], circ_values(r.frequency_hz)[i])[0] for r in _band_q_checks(spec, sweep, i, tf)]
+        checks.append(_add_circuit([_srf_check(spec, sweep, i, srf_solves)], {"SRF": srf_model[i]})[0])
 
     if ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
         notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
@@ -836,7 +904,7 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
         notes.append("mesh convergence needs three solvable meshes; not assessed")
 
     checks_t = tuple(checks)
-    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence, plan)
+    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence and mom_ok, plan, mom_ok)
     return ValidationResult(
         name=sweep.name,
         tap_turns=tuple(sweep.tap_turns),
@@ -914,13 +982,50 @@ def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
     return runs, conv, []
 
 
-def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None):
-    """ok | caution | unreliable, with the reasons in words (see the README)."""
+def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str]]:
+    """Judge a tap's inductance: the circuit column (what the sweep reports) against the
+    quasi-static sum, and the MoM of the end tap against the circuit. A mid tap's MoM reads high
+    by NEC's junction bias (open wire continuing its path), shown in the table, not judged."""
+    out = []
+    c_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_circuit is not None]
+    if c_rows:
+        worst = max(c_rows, key=lambda c: abs(c.rel_diff_circuit))
+        d = worst.rel_diff_circuit
+        where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
+        text = f"tap {n}: circuit-solver {where} is {d:+.1%} from the quasi-static sum"
+        if abs(d) > L_CAUTION:
+            out.append(("unreliable", text + f" (beyond {L_CAUTION:.0%})"))
+        elif abs(d) > L_OK:
+            out.append(("caution", text + f" (beyond {L_OK:.0%})"))
+    m_rows = [c for c in rows if c.quantity == "L" and c.mom is not None and c.circuit is not None]
+    if m_rows and n == sweep.tap_turns[-1]:
+        worst = max(m_rows, key=lambda c: abs(c.mom / c.circuit - 1))
+        d = worst.mom / worst.circuit - 1
+        if abs(d) > L_CAUTION:
+            out.append(("caution", f"tap {n}: MoM L at {worst.frequency_hz / 1e6:.3f} MHz is {d:+.1%} from the "
+                                   f"circuit solver's (beyond {L_CAUTION:.0%})"))
+    if not c_rows:  # no circuit: the MoM against the quasi-static sum, as before
+        l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
+        if l_rows:
+            worst = max(l_rows, key=lambda c: abs(c.rel_diff_mom))
+            if abs(worst.rel_diff_mom) > L_CAUTION:
+                out.append(("unreliable", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
+            elif abs(worst.rel_diff_mom) > L_OK:
+                out.append(("caution", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
+    return out
+
+
+def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None,
+             mom_ok: bool = True):
+    """ok | caution | unreliable, with the reasons in words (see the README).
+
+    Without a MoM (mesh too large to solve) the MoM's mesh rules, convergence and self-resonance
+    bracket do not apply: the sweep's numbers come from the circuit solver alone."""
     rank = {"ok": 0, "caution": 1, "unreliable": 2}
     overall: list[tuple[str, str]] = []
     per_tap: dict[int, list[tuple[str, str]]] = {n: [] for n in sweep.tap_turns}
 
-    for r in sweep.rules:
+    for r in sweep.rules if mom_ok else ():
         if r.status == "fail":
             overall.append(("unreliable", f"mesh rule '{r.name}' fails: {r.detail}"))
         elif r.status == "warn" and r.name in _MESH_RULES_CAUTION:
@@ -940,29 +1045,7 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
 
     for n in sweep.tap_turns:
         rows = [c for c in checks if c.tap == n]
-        l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
-        if l_rows:
-            # The sweep's L0 row is already junction-corrected; the direct MoM rows are raw and
-            # are judged after the same correction κ (impedances scale by κ), with both shown.
-            kappa = float(sweep.junction_correction[sweep.tap_turns.index(n)])
-
-            def judged(c):
-                return c.rel_diff_mom if c.frequency_hz is None else (1 + c.rel_diff_mom) * kappa - 1
-
-            worst = max(l_rows, key=lambda c: abs(judged(c)))
-            d = judged(worst)
-            where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
-            if kappa != 1.0 and worst.frequency_hz is not None:
-                text = (f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum after the sweep's "
-                        f"junction correction ({worst.rel_diff_mom:+.1%} raw)")
-            else:
-                text = f"tap {n}: MoM {where} is {d:+.1%} from the quasi-static sum"
-            hint = ("; a lower tap: the open turns and leads beyond it join its current path at "
-                    "junctions, where NEC is biased (see the README)") if n != sweep.tap_turns[-1] else ""
-            if abs(d) > L_CAUTION:
-                per_tap[n].append(("unreliable", text + f" (beyond {L_CAUTION:.0%})" + hint))
-            elif abs(d) > L_OK:
-                per_tap[n].append(("caution", text + f" (beyond {L_OK:.0%})" + hint))
+        per_tap[n] += _inductance_verdict(sweep, n, rows)
         loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
         if loss:
             worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
@@ -974,7 +1057,8 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
         if srf is not None and np.isfinite(sweep.self_resonance_hz[sweep.tap_turns.index(n)]):
             f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
             if srf.mom is None:
-                per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
+                if mom_ok:
+                    per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
             else:
                 # An SRF misfit δ moves the model's |Z| at the top of the band by about
                 # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
@@ -983,7 +1067,7 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
                 in_band = 2 * abs(delta) * x / (1 - x)
                 if in_band > SRF_CAUTION:
                     per_tap[n].append(("caution", f"tap {n}: direct MoM self-resonance {srf.mom / 1e6:.3f} MHz is "
-                                                  f"{delta:+.1%} from the fitted model's, which moves the model's "
+                                                  f"{delta:+.1%} from the circuit solver's, which moves the sweep's "
                                                   f"impedance at the top of the band by about {in_band:.1%}"))
     for a in agt_rows:
         if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
@@ -1018,6 +1102,8 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
                                                       f"extrapolated zero-segment value"))
     elif convergence_run:
         overall.append(("caution", "mesh convergence could not be assessed"))
+    elif not mom_ok:
+        pass  # no MoM: nothing of it to converge
     else:
         overall.append(("caution", "mesh convergence not checked (--no-convergence)"))
 
@@ -1029,7 +1115,7 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
     reasons = tuple(t for s, t in sorted(everything, key=lambda x: -rank[x[0]]))
     st = status(everything)
     if st == "ok":
-        reasons = ("every tap's MoM inductance is within 2 % of the quasi-static sum, the mesh-convergence "
-                   "spread is below 2 %, the power balance (radiated over accepted power) is within ±5 % and no "
-                   "mesh rule warns",)
+        reasons = ("every tap's inductance (circuit solver, and MoM where it runs) is within 2 % of the "
+                   "quasi-static sum, the mesh-convergence spread is below 2 %, the power balance (radiated "
+                   "over accepted power) is within ±5 % and no mesh rule warns",)
     return Verdict(st, reasons), tap_verdicts

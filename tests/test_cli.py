@@ -78,6 +78,8 @@ def test_check_prints_the_mesh_report(tmp_path, capsys):
     out = capsys.readouterr().out
     for text in ("segments", "wire to cut", "[pass]", "low-frequency floor", "2 x pitch"):
         assert text in out
+    # before any solve it says which source covers which part of the band
+    assert "sources (decided before any solve)" in out and "circuit (PEEC" in out and "mom (direct NEC)" in out
 
 
 def test_sweep_writes_every_output(tmp_path, capsys):

@@ -30,44 +30,60 @@ def result():
 
 def test_every_point_has_provenance_and_an_error(result):
     n, k = result.frequencies_hz.size, len(result.tap_turns)
-    assert set(result.source) <= {"mom", "model"}
+    assert set(result.source) <= {"mom", "circuit", "model"}
     assert result.error_estimate.shape == (n, k) and result.reliable.shape == (n, k)
     assert np.all(result.error_estimate > 0)
     floor = result.mesh.floor_frequency_hz()
     f = result.frequencies_hz
-    assert np.all(result.source[f < floor * (1 - 1e-9)] == "model")
-    assert np.all(result.source[f >= floor] == "mom")
+    # below the MoM's floor only the circuit can give a trusted point
+    assert np.all(result.source[f < floor * (1 - 1e-9)] == "circuit")
+    assert any("circuit" in line for line in result.coverage)
 
 
-def test_model_agrees_with_direct_mom_where_both_exist(result):
-    # Points above the floor are solved directly; the fitted model must reproduce them (the fit
-    # window lies below, so these are held-back points for the model).
-    mom = result.source == "mom"
-    f = result.frequencies_hz[mom]
-    held_back = ~np.isin(f, result.model.fit_hz)
-    z_model = result.model.z(f[held_back])
-    z_mom = result.z_ohm[mom][held_back]
-    # Measured 0.20–0.24 % at 0.08–0.13 × SRF; fits over 0.45–0.6 × SRF predicted held-back
-    # points within 0.3 % in our PyNEC runs (docs/notes/pynec.md); 1 % leaves a factor 3.
-    for i in range(len(result.tap_turns)):
-        rel = np.abs(z_model[:, i, i] - z_mom[:, i, i]) / np.abs(z_mom[:, i, i])
-        assert rel.max() < 0.01
+def test_circuit_and_mom_agree_where_both_exist(result):
+    # Above the floor every point was also solved by NEC (an independent full-wave MoM). On the
+    # tap at the end of the winding they agree within NEC's own pitch bias at draft quality
+    # (segment/pitch 2.5: about 2 %, measured, simloop.impedance.pitch_bias) once the resonance
+    # amplification is divided out; the mid tap carries NEC's junction bias (a few per cent,
+    # measured: detaching the open stub removed it).
+    assert len(result.solves) >= 1
+    assert result.mom_difference[1] < 0.025
+    assert 0.0 < result.mom_difference[0] < 0.10
 
 
-def test_fit_window_is_in_the_trusted_range(result):
-    # Trusted window (docs/notes/pynec.md, "Accuracy windows"): segments never below 5e-5
-    # wavelengths, and the fit below about 0.6 × SRF (measured 0.59 here; 0.65 allows for the
-    # self-resonance being itself a product of the fit).
+def test_tap_inductances_equal_the_partial_inductance_sums(result):
+    # Grover (1946) ch. 3 partial-inductance sum of each tap's own current path: the circuit's L0
+    # needs no junction correction (open wires carry no current at ω → 0); 1e-4 from the
+    # quadrature of the sloped advance pieces.
+    np.testing.assert_allclose(result.uncorrected_inductance_h, result.quasi_static_inductance_h,
+                               rtol=1e-4, atol=0)
+    # the lumped fit used for tuning keeps L0 within 0.1 % (fit window 0.1–0.5 × SRF)
+    np.testing.assert_allclose(result.inductance_h, result.quasi_static_inductance_h, rtol=1e-3, atol=0)
+
+
+def test_fit_window_is_below_the_self_resonance(result):
     fit = result.model.fit_hz
-    assert fit.min() >= result.mesh.floor_frequency_hz(5e-5) * (1 - 1e-9)
-    assert fit.max() <= 0.65 * np.nanmin(result.self_resonance_hz)
+    assert fit.max() <= 0.6 * np.nanmin(result.self_resonance_hz) * (1 + 1e-9)
 
 
 def test_self_resonance_from_the_model_is_where_the_reactance_turns(result):
     # At the fitted self-resonance the model's tap reactance changes sign (parallel resonance).
-    for i, srf in enumerate(result.self_resonance_hz):
+    for i in range(len(result.tap_turns)):
+        srf = result.model.self_resonance_hz(i, 1e9)
         x = result.model.z(np.array([0.98, 1.02]) * srf, lossless=True)[:, i, i].imag
         assert x[0] > 0 > x[1]
+        # the lumped model's resonance lies within 5 % of the circuit's own: its one-pole form,
+        # fitted in the band, extrapolates to the resonance (measured 2–3 % on this loop)
+        assert srf == pytest.approx(result.self_resonance_hz[i], rel=0.05, abs=0)
+
+
+def test_lumped_model_reproduces_the_circuit_in_the_band(result):
+    # The lumped model serves tuning between the sweep points: within 0.5 % of the circuit's
+    # points in the band (its fit window), proximity loss added the same way as for the MoM.
+    z_model = result.model_z(result.frequencies_hz, proximity=True)
+    for i in range(len(result.tap_turns)):
+        rel = np.abs(z_model[:, i, i] / result.z_ohm[:, i, i] - 1)
+        assert rel.max() < 0.005
 
 
 @pytest.mark.parametrize("side_m, segment_m", [(0.3, 0.005), (0.3, 0.01), (0.5, 0.008)])
@@ -153,7 +169,7 @@ def test_touchstone_s_parameters_follow_the_standard():
 
 def test_loss_model_follows_the_skin_effect(result):
     # The fitted conductor-loss coefficient times the exact skin-effect ratio must reproduce the
-    # resistance the MoM gave at the fit points (NEC's type-5 load is skin effect only).
+    # resistance of the (skin-effect only) circuit solves it was fitted to.
     geom = result.geometry
     path_len = np.linalg.norm(np.subtract(*geom.current_path(1)[::-1]), axis=1).sum()
     f = result.model.fit_hz
@@ -177,3 +193,54 @@ def test_junction_scaling_keeps_resonance_and_q(result):
     z0, z1 = result.model.z(f), scaled.z(f)
     assert np.allclose(z1[:, 0, 0], s[0] ** 2 * z0[:, 0, 0], rtol=1e-9, atol=0)
     assert np.allclose(z1[:, 0, 1], s[0] * s[1] * z0[:, 0, 1], rtol=1e-9, atol=0)
+
+
+CLOSE_WOUND = """
+name = "close-wound"
+[frame]
+width = "15 cm"
+height = "15 cm"
+[winding]
+style = "stacked"
+turns = 6
+pitch = "0.66 mm"
+[wire]
+gauge = "24 AWG"
+[taps]
+turns = [3, 6]
+[leads]
+offset = "2 cm"
+[sweep]
+start = "520 kHz"
+stop = "1710 kHz"
+points = 5
+[mesh]
+quality = "draft"
+"""
+
+
+def test_close_wound_loop_sweeps_from_the_circuit_alone():
+    # Pitch 1.3 wire diameters: NEC's floor lies far above the band (the old design failed with
+    # "no valid fit window"); the circuit covers every point, decided before any solve.
+    from simloop.geometry import loop_from_spec
+    from simloop.impedance import plan_sources, prepare
+
+    spec = loads(textwrap.dedent(CLOSE_WOUND))
+    geom, mesh, _ = prepare(spec)
+    plan = plan_sources(spec, geom, mesh)
+    assert plan.mom_hz == () and plan.check_hz == ()
+    res = run_sweep(spec)
+    assert np.all(res.source == "circuit") and not res.solves
+    assert res.reliable.all()
+    # L0 equals the partial-inductance sum of each tap's path (Grover 1946), 1e-4
+    np.testing.assert_allclose(res.uncorrected_inductance_h, res.quasi_static_inductance_h, rtol=1e-4, atol=0)
+    # the proximity effect is in the points: the full tap's resistance exceeds its skin-effect
+    # loss by about Smith's factor for 6 wires at c/a = 1.29 (computed from the formula), within
+    # 10 % (the circuit's turn-coupling model spreads it unevenly; leads carry none)
+    f = res.frequencies_hz[0]
+    skin = res.circuit.with_proximity(False).solve(f).z_ohm[1, 1].real
+    factor = reference.proximity_factor_smith1972(6, geom.pitch_m / (2 * geom.wire_radius_m))
+    winding = geom.winding_length_m * reference.resistance_per_length_round_wire(
+        geom.wire_radius_m, f, res.resistivity_ohm_m)
+    assert res.z_ohm[0, 1, 1].real - skin == pytest.approx(factor * winding, rel=0.10, abs=0)
+    assert loop_from_spec(spec).pitch_m < 1.5 * 2 * geom.wire_radius_m

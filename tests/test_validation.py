@@ -171,38 +171,39 @@ def test_full_winding_tap_agrees_with_the_quasi_static_model(case, request):
     floor = sweep.mesh.floor_frequency_hz(5e-5)
     l_rows = rows(result, "L", tap=4) + rows(result, "L0", tap=4)
     assert len(l_rows) >= 3
-    for c in l_rows:
+    mom_rows = [c for c in l_rows if c.mom is not None]
+    assert mom_rows  # at least one check frequency above the MoM's floor
+    for c in mom_rows:
         assert c.frequency_hz is None or c.frequency_hz >= floor
-        # Against Grover's partial-inductance sum (docs/references.md §1). Measured 0.06–0.46 %;
-        # 1 % allows the pitch-rule error of the sweep mesh (segment 0.77 × pitch: about 0.3 %
-        # by the measured law, docs/notes/pynec.md) and the breakdown error above the floor
-        # (≤ 0.1 %), with margin.
-        assert abs(c.rel_diff_mom) < 0.01, c
-    # the reference in the rows is the partial sum of this tap's own current path, leads included
+        assert abs(c.rel_diff_mom) < 0.04, c
+    # the circuit column: the partial-inductance sum of the same path (Grover 1946) is its ω → 0
+    # limit; the series branch with the fitted shunt C removed stays within 0.5 % in the band
+    for c in l_rows:
+        assert abs(c.rel_diff_circuit) < 0.005, c
     i = sweep.tap_turns.index(4)
     qs = reference.inductance_partial_sum(*sweep.geometry.current_path(i), sweep.geometry.wire_radius_m)
     assert rows(result, "L0", tap=4)[0].quasi_static == pytest.approx(qs, rel=1e-12, abs=0)
 
 
-def test_lower_tap_disagreement_is_flagged_and_seen_by_the_average_gain(stacked):
-    # The MoM puts tap 2 of this loop several per cent above the quasi-static sum (NEC at the
-    # junctions where open turns and leads continue the tap's current path; see README). The
-    # validation must say so, and the average gain test must see that tap's input resistance
-    # as less consistent with its far field than the full winding's.
+def test_lower_tap_mom_junction_bias_is_shown_against_the_circuit(stacked):
+    # NEC puts tap 2 of this loop several per cent above the quasi-static sum (open turns and
+    # leads continue the tap's current path at junctions; see README). The circuit solver needs
+    # no correction: its column sits on the sum, the MoM column shows the bias, and the average
+    # gain test sees that tap's MoM input resistance as less consistent with its far field.
     spec, sweep, result = stacked
-    assert result.tap_verdicts[2].status in ("caution", "unreliable")
-    assert any(r.startswith("tap 2:") for r in result.verdict.reasons)
+    mom = [c for c in rows(result, "L", tap=2) if c.mom is not None]
+    assert mom and all(c.rel_diff_mom > 0.01 for c in mom)
+    assert all(abs(c.rel_diff_circuit) < 0.005 for c in rows(result, "L", tap=2))
     agt = {a.tap: a.agt for a in result.average_gain}
     assert abs(agt[2] - 1) > abs(agt[4] - 1)
 
 
-def test_lower_tap_l0_after_the_junction_correction_agrees_with_the_quasi_static_model(stacked):
-    # The sweep's L0 of tap 2 carries the junction correction (a MoM solve of the tap's own
-    # circuit). Against Grover's partial-inductance sum (docs/references.md §1): measured +0.88 %;
-    # 2 % is validate's own "ok" threshold (L_OK), which this tap must meet once corrected.
+def test_lower_tap_l0_of_the_circuit_agrees_with_the_quasi_static_model(stacked):
+    # Grover (1946) partial-inductance sum of tap 2's own current path: 1e-4 (quadrature of the
+    # sloped advance pieces), no junction correction.
     spec, sweep, result = stacked
     for c in rows(result, "L0", tap=2):
-        assert abs(c.rel_diff_mom) < 0.02
+        assert abs(c.rel_diff_circuit) < 1e-4
 
 
 @pytest.mark.xfail(strict=True, reason="NEC biases lower taps: an open stub continuing a bent current "
@@ -212,28 +213,30 @@ def test_lower_tap_l0_after_the_junction_correction_agrees_with_the_quasi_static
 def test_lower_tap_raw_direct_mom_agrees_with_the_quasi_static_model(stacked):
     spec, sweep, result = stacked
     for c in rows(result, "L", tap=2):
-        assert abs(c.rel_diff_mom) < 0.04
+        if c.mom is not None:
+            assert abs(c.rel_diff_mom) < 0.04
 
 
 def test_wire_loss_and_radiation_of_the_full_tap(stacked):
     spec, sweep, result = stacked
+    # The circuit against the exact round-wire skin effect × path length (Ramo et al. 1994):
+    # within 1 % at the bottom of the band; higher up the current is no longer uniform along the
+    # 5.9 m path (NEC measured 1.03 % at 0.38 × self-resonance), so 2 %.
     f_low = min(result.check_frequencies_hz)
-    # NEC's conductivity load against the exact round-wire skin effect × path length
-    # (docs/references.md §4): within 0.1–0.3 % on a single loop (docs/notes/pynec.md), 1 % allowed
-    # for the self-capacitance removal at the lowest check frequency (measured 0.5 %); higher up
-    # the current is no longer uniform along the 5.9 m path (measured 1.06 % at 0.27 × self-
-    # resonance), so 2 % there
     for c in rows(result, "R_loss skin", tap=4):
-        assert abs(c.rel_diff_mom) < (0.01 if c.frequency_hz == f_low else 0.02), c
-    # lossless input resistance against the small-loop law of the path's vector area well below
-    # self-resonance (Balanis 2016 ch. 5, docs/references.md §3): measured −0.18 %; 2 % is the
-    # window for direct MoM points used throughout (the MoM kept R within ~1 % of the law even
-    # below the floor, docs/notes/pynec.md, and the single-turn check measured +1.3 %)
-    r = next(c for c in rows(result, "R_rad", tap=4) if c.frequency_hz == f_low)
-    assert abs(r.rel_diff_mom) < 0.02
-    # proximity (Smith 1972, docs/references.md §4) only adds loss: Q with it is lower
+        assert abs(c.rel_diff_circuit) < (0.01 if c.frequency_hz == f_low else 0.02), c
+        if c.mom is not None:  # NEC's conductivity load: 0.1–0.3 % on a single loop (measured)
+            assert abs(c.rel_diff_mom) < 0.02, c
+    # radiation resistance against the magnetic moment of the path (Balanis 2016 ch. 5); the
+    # circuit uses its own current distribution's moment, which at the top of the band departs
+    # from uniform by about (f/f_srf)² ≈ 2 % (measured +1.6 % at 1.71 MHz): 3 %
+    for c in rows(result, "R_rad", tap=4):
+        assert abs(c.rel_diff_circuit) < 0.03, c
+        if c.mom is not None:
+            assert abs(c.rel_diff_mom) < 0.02, c
+    # proximity-corrected Q is lower than skin-only Q, and tune uses the corrected one
     for a, b in zip(rows(result, "Q skin", tap=4), rows(result, "Q skin+prox", tap=4)):
-        assert b.mom < a.mom
+        assert b.circuit < a.circuit
 
 
 def test_direct_self_resonance_is_a_parallel_resonance_of_fresh_solves(stacked):
@@ -319,7 +322,11 @@ def test_real_ground_resistance_below_resolution_is_a_flag(tmp_path):
     spec, sweep, result = validated(spec_text("stacked", taps="[4]", extra=ground), convergence=False)
     lossless = rows(result, "R_rad+ground")
     assert lossless and not rows(result, "R_rad")
+    floor = sweep.mesh.floor_frequency_hz(5e-5)
     for c in lossless:
+        if c.frequency_hz < floor:  # below the MoM's floor: no MoM solve at all
+            assert c.mom is None
+            continue
         assert (c.mom is None and c.flag == BELOW_RESOLUTION) or c.mom >= GROUND_RESOLUTION_OHM
     # this small loop's ground loss (NEC showed −0.05 Ω for a lossless coil over Sommerfeld
     # ground, docs/notes/pynec.md) lies below the resolution: flagged, and null in the JSON

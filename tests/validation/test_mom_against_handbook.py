@@ -59,9 +59,12 @@ def test_single_turn_inductance_matches_terman(single_turn):
 
 def test_single_turn_radiation_resistance_matches_small_loop_law(single_turn):
     # Balanis, Antenna Theory, ch. 5: R_r = 320 pi^4 (A/lambda^2)^2 for perimeter < 0.1 lambda.
-    # Lossless wire, so the MoM resistance is all radiation; direct MoM points only.
-    mom = single_turn.source == "mom"
-    assert mom.any(), "the mesh puts some sweep points above the breakdown floor"
+    # Lossless wire, so the resistance is all radiation; points above the MoM's floor, where NEC
+    # solved directly (the sweep reports the circuit there when its error estimate is smaller;
+    # the two then agree within the measured difference, which is part of the estimate).
+    assert single_turn.solves, "the mesh puts some sweep points above the breakdown floor"
+    mom = single_turn.frequencies_hz >= single_turn.mesh.floor_frequency_hz() * (1 - 1e-9)
+    assert mom.any()
     area = float(single_turn.geometry.turn_area_m2()[0])
     f = single_turn.frequencies_hz[mom]
     assert np.all(2 * (1.0 + 0.6) < 0.1 * reference.SPEED_OF_LIGHT / f)
@@ -72,17 +75,15 @@ def test_single_turn_radiation_resistance_matches_small_loop_law(single_turn):
     assert np.allclose(r_mom, r_law, rtol=0.02, atol=0)
 
 
-def test_model_points_carry_the_law_below_the_floor(single_turn):
-    # Below the floor the resistance comes from the fitted f^4 law: it must stay on Balanis' line.
-    # Measured +4.8 to +4.9 %, i.e. 3.5 % above the direct MoM points (cause not yet found; noted
-    # in docs/notes/engineering.md). 6 % holds today's value and still catches a worse fit; the
-    # direct points above are held to 2 %.
-    model = single_turn.source == "model"
-    assert model.any()
+def test_circuit_points_carry_the_law_below_the_floor(single_turn):
+    # Below the floor the points come from the circuit solver, whose radiation resistance is the
+    # path's magnetic moment: it must stay on Balanis' line (2016, ch. 5).
+    low = single_turn.source == "circuit"
+    assert low.any()
     area = float(single_turn.geometry.turn_area_m2()[0])
-    f = single_turn.frequencies_hz[model]
+    f = single_turn.frequencies_hz[low]
     r_law = reference.radiation_resistance_small_loop(area, f)
-    assert np.allclose(single_turn.z_ohm[model, 0, 0].real, r_law, rtol=0.06, atol=0)
+    assert np.allclose(single_turn.z_ohm[low, 0, 0].real, r_law, rtol=0.10, atol=0)
 
 
 @pytest.fixture(scope="module", params=["small-stacked", "small-spiral"])
@@ -109,14 +110,17 @@ def test_every_tap_matches_partial_inductance_sum(multi_turn):
     assert multi_turn.junction_correction[-1] == 1.0
 
 
-def test_junction_correction_is_what_brings_mid_taps_in(multi_turn):
-    # Without the correction the mid tap of these coils read 3.9-4.7 % high; the correction is a
-    # MoM solve of the tap's own circuit, not the quasi-static value, so it can disagree with it.
+def test_circuit_needs_no_junction_correction_and_measures_the_mom_bias(multi_turn):
+    # The circuit solver's L0 of every tap is the partial-inductance sum of its own path (Grover
+    # 1946; 1e-4 from the quadrature of the sloped advance pieces) with no correction; NEC's
+    # direct solves above its floor read the mid tap high (measured 3.9-6 % on these coils) and
+    # the end tap within its pitch bias (draft quality: about 2 %, simloop.impedance.pitch_bias).
     geom = multi_turn.geometry
-    qs = reference.inductance_partial_sum(*geom.current_path(0), geom.wire_radius_m)
-    raw = multi_turn.uncorrected_inductance_h[0] / qs - 1
-    assert raw > 0.02
-    assert abs(_ratio(multi_turn, 0) - 1) < raw / 2
+    for i in range(len(multi_turn.tap_turns)):
+        qs = reference.inductance_partial_sum(*geom.current_path(i), geom.wire_radius_m)
+        assert multi_turn.uncorrected_inductance_h[i] == pytest.approx(qs, rel=1e-4, abs=0)
+    assert multi_turn.mom_difference[0] > 0.02
+    assert multi_turn.mom_difference[-1] < 0.025
 
 
 def test_mid_tap_bias_is_the_open_stub_at_the_tap_junction():
