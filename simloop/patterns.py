@@ -1213,12 +1213,15 @@ def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress
     check_pattern_inputs(spec)
     ps = spec.pattern or PatternSpec()
     env = sweep.environment
+    tuner = tuner_from_spec(spec.tuner)
+    floor_hz = sweep.mesh.floor_frequency_hz()
+    if ps.frequency_hz < floor_hz and env.ground == "free-space" and getattr(sweep, "circuit", None) is not None:
+        return _circuit_pattern(spec, sweep, tuner, ps, floor_hz, rod_voltage)
     plan, rows, grid = pattern_plan(sweep.mesh, env, ps.frequency_hz, ps.elevation_deg)
     cb = (lambda d, t: progress("pattern", d, t)) if progress else None
     (res,) = solve_plans([plan], executor=executor, workers=workers, cache=cache, progress=cb)
     if isinstance(res, SolverError):
         raise res
-    tuner = tuner_from_spec(spec.tuner)
     sphere = PortFarField(far_field_solution(res, grid))
     tap, _, _ = tuned_tap(sweep, tuner, ps.frequency_hz)
     efficiency = power_check(sphere, tap, f"{ps.frequency_hz / 1e6:.6g} MHz over {env.ground}")
@@ -1227,8 +1230,21 @@ def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress
     return pattern_from_far_field(_rows_field(res, rows), sweep, tuner, moments=moments,
                                   elevation_deg=ps.elevation_deg, polarization=ps.polarization,
                                   receiver=spec.receiver, rod_voltage=rod_voltage,
-                                  floor_hz=sweep.mesh.floor_frequency_hz(), notes=notes,
-                                  context=couple_context(spec, sweep))
+                                  floor_hz=floor_hz, notes=notes, context=couple_context(spec, sweep))
+
+
+def _circuit_pattern(spec, sweep, tuner, ps, floor_hz: float, rod_voltage) -> PatternResult:
+    """Below NEC's breakdown floor (free space): the loop's response from the circuit solver's
+    magnetic and electric dipole moments (:class:`DipoleField`; the loop is small against the
+    wavelength there, so the two dipoles are its whole far field — tested against the MoM above
+    the floor)."""
+    sol = sweep.circuit.solve(ps.frequency_hz)
+    m, p = sol.dipole_moments()
+    dip = DipoleField(m, p, ps.frequency_hz)
+    return pattern_from_far_field(dip, sweep, tuner, moments=dip.moments, elevation_deg=ps.elevation_deg,
+                                  polarization=ps.polarization, receiver=spec.receiver, rod_voltage=rod_voltage,
+                                  floor_hz=floor_hz, notes=[f"circuit-below-floor:{floor_hz:.6g}"],
+                                  model="circuit", context=couple_context(spec, sweep))
 
 
 def couple_context(spec, sweep):

@@ -77,11 +77,15 @@ def note_text(code: str) -> str:
     kind, _, value = code.partition(":")
     if kind == "below-floor":
         return (f"the pattern frequency lies below NEC's breakdown floor of this mesh ({float(value) / 1e6:.3g} MHz): "
-                "its currents and so its null depths are suspect (the circuit solver's dipole moments will "
-                "replace them there)")
+                "its currents and so its null depths are suspect (over a ground the circuit solver's "
+                "free-space dipoles cannot replace them)")
     if kind == "horizontal-at-horizon":
         return ("a horizontally polarised wave at the horizon does not couple to the loop's magnetic moment: "
                 "the loop's response there is its antenna effect alone")
+    if kind == "circuit-below-floor":
+        return (f"the pattern frequency lies below NEC's breakdown floor of this mesh ({float(value) / 1e6:.3g} MHz): "
+                "the loop's response comes from the circuit solver's magnetic and electric dipole moments "
+                "(free space), not from NEC")
     if kind == "receiver-assumed":
         return ("no [receiver] in the spec: a typical radio's rod (10 × 100 mm, μi 125, 65 turns, loaded Q 60) "
                 "is assumed 15 cm in front of the winding, its axis along the loop's")
