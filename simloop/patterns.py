@@ -737,13 +737,16 @@ class PatternResult:
     elevation_deg : ndarray, shape (e,)  [deg]
     polarization : str
     response_db : dict of str → ndarray, shape (e, n)
-        ``"loop"`` (voltage across the tuned capacitor) and ``"receiver"`` (the rod alone, when
-        the spec has a ``[receiver]``), each in dB relative to its maximum over the whole grid.
+        ``"loop"`` (voltage across the tuned capacitor), ``"receiver"`` (the rod's own pickup
+        alone) and ``"system"`` (the radio's capacitor voltage with the loop beside it,
+        :func:`system_response`), each in dB relative to its maximum over the whole grid.
     nulls : tuple of Null
     models : dict of str → str
         Where each response came from: ``"mom"`` (NEC, above its breakdown floor),
         ``"mom-below-floor"`` (NEC below its floor: currents and null depths suspect),
-        ``"dipole"`` (a rod as a small magnetic dipole) or the name of a replacement model.
+        ``"circuit"`` (the circuit solver's dipole moments, below NEC's floor), ``"dipole"`` (a
+        rod as a small magnetic dipole), ``"receiver"`` (the rod model of
+        :mod:`simloop.receiver`), ``"two-port"`` (the system) or a replacement model's name.
     tap_turns : int
         The tap the tuner is connected to.
     capacitance_f : float
@@ -751,13 +754,15 @@ class PatternResult:
     loop_volts_per_v_m : float
         Largest voltage across the tuned capacitor for a 1 V/m wave. [V per V/m]
     magnetic_moment, electric_moment : ndarray, shape (3,), complex
-        The loop's dipole moments per unit port current fitted to the MoM far field
-        (free space only; NaN otherwise). [A·m², C·m]
+        The loop's dipole moments per unit port current, fitted to the MoM far field or the
+        circuit solver's (free space only; NaN otherwise). [A·m², C·m]
     multipole_residual : float
         Relative rms of the far field beyond the two dipoles. [-]
     floor_hz : float
         NEC's breakdown floor of this mesh. [Hz]
     notes : tuple of str
+    system : SystemModel or None
+        The loop–rod 2-port behind ``response_db["system"]`` (None without a coupling context).
     """
 
     frequency_hz: float

@@ -32,6 +32,11 @@ MODELS = {
 }
 
 
+#: Where the loop's response came from, short, for the figure's title.
+SOURCE_SHORT = {"mom": "NEC", "mom-below-floor": "NEC below its breakdown floor (suspect)",
+                "circuit": "the circuit solver (below NEC's floor)"}
+
+
 def cause_text(null) -> str:
     """One line saying what limits a null's depth."""
     d = null.detail
@@ -182,7 +187,8 @@ def plot_pattern(result: PatternResult, path: Path) -> Path:
         if i == 0:
             ax.legend(loc="lower left", bbox_to_anchor=(-0.1, -0.16), fontsize=7, frameon=False)
     fig.suptitle(f"Receive pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
-                 f"tap {result.tap_turns}\neach response relative to its own maximum", fontsize=10)
+                 f"tap {result.tap_turns}\neach response relative to its own maximum; the loop's from "
+                 f"{SOURCE_SHORT.get(result.models.get('loop'), result.models.get('loop'))}", fontsize=10)
     fig.savefig(path, dpi=110)
     return path
 
