@@ -439,12 +439,16 @@ class CircuitStage:
 def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, f_sweep,
                          resistivity, proximity: bool = False) -> LoopModel:
     """The lumped L-C model fitted to exact circuit solves (skin loss only, as from the MoM), for
-    tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds), or
-    0.1–0.5 × the resonance if the band starts above that."""
+    tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds) and up to
+    a turn perimeter of :data:`SMALL_LOOP_PERIMETER` wavelengths (where its f⁴ radiation law
+    holds), or 0.1–0.5 × the resonance if the band starts above that."""
     top = np.nanmin(srf) if np.any(np.isfinite(srf)) else np.inf
-    lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top)
+    outer_turn = float(geom.lengths_m[(np.array(geom.kinds) == "winding") & (geom.turn == 0)].sum())
+    small = SMALL_LOOP_PERIMETER * C0 / outer_turn  # where the fitted f⁴ radiation law holds
+    lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top, small)
     if hi < 1.3 * lo:
-        lo, hi = 0.1 * top, 0.5 * top
+        hi = min(0.5 * top, small)
+        lo = min(0.1 * top, hi / 1.3)
     fit_hz = np.geomspace(lo, hi, WINDOW_POINTS)
     circuit = cm if proximity else cm.with_proximity(False)
     y = np.array([np.linalg.inv(circuit.solve(f).z_ohm) for f in fit_hz])
