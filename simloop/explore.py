@@ -405,9 +405,10 @@ class SolveBudget:
     """Matrix factorisations a sweep needed, by role.
 
     ``probe``, ``window`` and ``direct`` come from :attr:`SweepResult.solves`; ``junction`` is
-    the own-circuit solves of the mid taps (three per corrected tap, as
-    :func:`simloop.impedance.junction_correction` makes them); ``cached`` the solves read from
-    the cache instead of factorised; ``seconds`` the solver time of the recorded solves. [s]
+    the own-circuit solves of the mid taps (at the lowest and highest fit frequency per corrected
+    tap, as :func:`simloop.impedance.junction_correction` makes them; not in ``solves``);
+    ``cached`` the recorded solves read from the cache instead of factorised; ``seconds`` the
+    solver time of the recorded solves. [s]
     """
 
     probe: int
@@ -431,7 +432,7 @@ def solve_budget(sweep) -> SolveBudget:
     """Count the factorisations of a :class:`~simloop.impedance.SweepResult` by role."""
     roles = Counter(r.role for r in sweep.solves)
     fit = np.asarray(sweep.model.fit_hz)
-    picks = len({float(fit[0]), float(fit[len(fit) // 2]), float(fit[-1])})
+    picks = len({float(fit[0]), float(fit[-1])})
     corrected = int(np.sum(np.asarray(sweep.junction_correction) != 1.0))
     return SolveBudget(probe=roles.get("probe", 0), window=roles.get("window", 0),
                        direct=roles.get("direct", 0), junction=corrected * picks,

@@ -211,6 +211,14 @@ def _design_label(rec, axes) -> str:
     return ", ".join(f"{a.key.split('.')[-1]} {a.label(rec[a.key])}" for a in axes)
 
 
+def _integer_ticks(ax, *axes):
+    from matplotlib.ticker import MaxNLocator
+
+    for axis, target in zip(axes, (ax.xaxis, ax.yaxis)):
+        if all(isinstance(v, int) for v in axis.values):
+            target.set_major_locator(MaxNLocator(integer=True))
+
+
 def _objective_panel(ax, records, axes, objective):
     """The objective over the first one or two ordered axes (best over the other axes)."""
     ordered = [a for a in axes if a.numeric is not None]
@@ -230,11 +238,17 @@ def _objective_panel(ax, records, axes, objective):
         good = np.isfinite(best)
         sc = ax.scatter(xy[good, 0], xy[good, 1], c=best[good], cmap="viridis", s=260, marker="s",
                         edgecolors="k", linewidths=0.4)
-        ax.scatter(xy[~good, 0], xy[~good, 1], marker="x", color="0.4", s=60, label="no design solved")
+        if np.any(~good):
+            ax.scatter(xy[~good, 0], xy[~good, 1], marker="x", color="0.4", s=60, label="no design solved")
         for (x, y), b in zip(xy[good], best[good]):
             ax.annotate(f"{b:.0f}", (x, y), ha="center", va="center", fontsize=7,
                         color="w" if b < np.nanmax(best) * 0.6 else "k")
         ax.figure.colorbar(sc, ax=ax, label=label)
+        if np.any(good):
+            top = int(np.nanargmax(np.where(good, best, np.nan)))
+            ax.scatter(*xy[top], s=420, marker="s", facecolors="none", edgecolors="tab:red", linewidths=1.5,
+                       label=f"best {name}")
+        _integer_ticks(ax, ax_x, ax_y)
         ax.set_xlabel(xl)
         ax.set_ylabel(yl)
         others = [a.key for a in axes if a not in (ax_x, ax_y)]
@@ -242,8 +256,7 @@ def _objective_panel(ax, records, axes, objective):
         if others:
             title += f"\n(best over {', '.join(others)})"
         ax.set_title(title, fontsize=9)
-        if np.any(~good):
-            ax.legend(fontsize=7, loc="best")
+        ax.legend(fontsize=7, loc="best")
         return
     if len(ordered) == 1:
         ax_x = ordered[0]
@@ -256,6 +269,7 @@ def _objective_panel(ax, records, axes, objective):
         for g, pts in groups.items():
             pts.sort()
             ax.plot([p[0] for p in pts], [p[1] for p in pts], "o-", label=g)
+        _integer_ticks(ax, ax_x)
         ax.set_xlabel(xl)
         ax.set_ylabel(label)
         ax.set_title(f"{name} against {ax_x.key}", fontsize=9)
@@ -281,9 +295,12 @@ def _pareto_panel(ax, records, axes, summ):
     front = [index[h] for h in summ["pareto"]]
     if front:
         ax.plot(cov[front], q[front], "k-", lw=1, zorder=1, label="Pareto front")
+        right = np.nanmax(cov[front])
         for i in front:
+            left_side = cov[i] > 0.7 * right  # labels of the right-hand points go to their left
             ax.annotate(_design_label(records[i], axes), (cov[i], q[i]), fontsize=6,
-                        xytext=(4, 4), textcoords="offset points")
+                        xytext=(-4 if left_side else 4, 4), textcoords="offset points",
+                        ha="right" if left_side else "left")
     ax.set_xlabel("band channels tuned [%]")
     ax.set_ylabel("median loaded Q over tuned channels [-]")
     ax.set_title("coverage against Q: the Pareto front (up and right is better)", fontsize=9)
