@@ -95,12 +95,17 @@ def cmd_check(args) -> int:
 def _run_sweep(args, spec):
     from simloop.impedance import run_sweep
 
+    from simloop.explore import solve_budget
+
     progress = _Progress(args.quiet)
     try:
-        return run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
-                         direct=getattr(args, "direct", False))
+        result = run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                           direct=getattr(args, "direct", False))
     finally:
         progress.close()
+    if not args.quiet:
+        print(solve_budget(result).describe())
+    return result
 
 
 def _spec_out_sweep(args, spec, sweep):

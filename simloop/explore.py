@@ -422,6 +422,13 @@ class SolveBudget:
     def total(self) -> int:
         return self.probe + self.window + self.direct + self.junction
 
+    def describe(self) -> str:
+        """One line: the factorisations by role."""
+        cached = f"; {self.cached} of the recorded ones read from the cache" if self.cached else ""
+        return (f"solve budget: {self.total} factorisations (probe {self.probe}, window {self.window}, "
+                f"direct {self.direct}, junction {self.junction}), {self.seconds:.1f} s of solver time "
+                f"for the recorded ones{cached}")
+
     def as_dict(self) -> dict:
         return {"probe": self.probe, "window": self.window, "direct": self.direct,
                 "junction": self.junction, "total": self.total, "cached": self.cached,
