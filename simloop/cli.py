@@ -331,8 +331,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=None,
                    help="a Latin-hypercube sample of N designs instead of the full grid")
     p.add_argument("--seed", type=int, default=0, help="seed of the sample (default 0)")
-    p.add_argument("--objective", choices=["coverage", "q"], default="coverage",
-                   help="rank designs by band coverage or by median loaded Q")
+    from simloop.explore import OBJECTIVES
+
+    p.add_argument("--objective", choices=list(OBJECTIVES), default="coverage",
+                   help="rank designs by: " + "; ".join(f"{k}: {v[1]}" for k, v in OBJECTIVES.items()))
     p.add_argument("--band", default="itu-1", help="band plan, as for tune")
     p.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="run on a Dask cluster (tcp://HOST:PORT) instead of the local pool")

@@ -503,7 +503,9 @@ def budget_columns(spec, sweep, tune) -> dict:
 #: The row builder: each function maps (spec, sweep, tune) to columns of the design's row.
 COLUMNS = [coverage_columns, q_columns, verdict_columns, budget_columns]
 
-#: Objectives a design can be ranked by: column, and what it means.
+#: Objectives a design can be ranked by (``--objective``): its column, and what it means. A
+#: column function added to :data:`COLUMNS` becomes an objective with one entry here; the Pareto
+#: front plots coverage against the chosen objective (against Q when ranking by coverage).
 OBJECTIVES = {
     "coverage": ("coverage", "share of the band's channels tuned [-]"),
     "q": ("q_median", "median loaded Q over the tuned channels [-]"),

@@ -137,6 +137,11 @@ def _clean(x):
     return x
 
 
+def pareto_against(objective: str) -> str:
+    """The objective plotted against coverage on the Pareto front: the chosen one, or Q."""
+    return objective if objective != "coverage" else "q"
+
+
 def budget_totals(records) -> dict:
     """Factorisations of all designs of this run, by role (cached solves counted apart)."""
     tot = {"probe": 0, "window": 0, "direct": 0, "junction": 0, "total": 0, "cached": 0}
@@ -149,7 +154,7 @@ def budget_totals(records) -> dict:
 def summary(records, objective: str) -> dict:
     """Best design, the Pareto front of coverage against Q, counts and the budget."""
     cov = np.array([objective_value(r, "coverage") for r in records])
-    q = np.array([objective_value(r, "q") for r in records])
+    q = np.array([objective_value(r, pareto_against(objective)) for r in records])
     obj = np.array([objective_value(r, objective) for r in records])
     front = pareto_front(cov, q)
     best = int(np.nanargmax(obj)) if np.any(np.isfinite(obj)) else None
@@ -159,6 +164,7 @@ def summary(records, objective: str) -> dict:
         "designs": len(records),
         "failed": sum(r.get("error") is not None for r in records),
         "best": records[best]["design"] if best is not None else None,
+        "pareto_against": pareto_against(objective),
         "pareto": [records[i]["design"] for i in front],
         "solves": budget_totals(records),
     }
@@ -185,7 +191,7 @@ def format_summary(records, axes, summ: dict, top: int = 5) -> str:
         gap = f", gap {r['gap_hz'] / 1e3:.0f} kHz" if r["gaps_hz"] else ""
         lines.append(f"  {vals}: coverage {100 * r['coverage']:.1f} %, median Q {q_text}, "
                      f"{r['verdict']}{gap}")
-    lines.append(f"Pareto front (coverage against Q): {len(summ['pareto'])} designs")
+    lines.append(f"Pareto front (coverage against {summ['pareto_against']}): {len(summ['pareto'])} designs")
     for r in records:
         if r.get("error") is not None and r.get("error_kind") == "spec":
             vals = ", ".join(f"{a.key}={a.label(r[a.key])}" for a in axes)
@@ -224,7 +230,7 @@ def _objective_panel(ax, records, axes, objective):
     ordered = [a for a in axes if a.numeric is not None]
     name, meaning = OBJECTIVES[objective]
     scale = 100.0 if objective == "coverage" else 1.0
-    label = meaning.replace("share", "channels") if objective != "coverage" else "band channels tuned [%]"
+    label = "band channels tuned [%]" if objective == "coverage" else meaning
     val = np.array([objective_value(r, objective) for r in records]) * scale
     if len(ordered) >= 2:
         ax_x, ax_y = ordered[:2]
@@ -284,8 +290,9 @@ def _objective_panel(ax, records, axes, objective):
 
 
 def _pareto_panel(ax, records, axes, summ):
+    other = summ["pareto_against"]
     cov = np.array([objective_value(r, "coverage") for r in records]) * 100
-    q = np.array([objective_value(r, "q") for r in records])
+    q = np.array([objective_value(r, other) for r in records])
     colours = {"ok": "tab:green", "caution": "tab:orange", "unreliable": "tab:red"}
     for verdict, colour in colours.items():
         sel = np.array([r.get("verdict") == verdict for r in records], dtype=bool) & np.isfinite(q)
@@ -302,8 +309,8 @@ def _pareto_panel(ax, records, axes, summ):
                         xytext=(-4 if left_side else 4, 4), textcoords="offset points",
                         ha="right" if left_side else "left")
     ax.set_xlabel("band channels tuned [%]")
-    ax.set_ylabel("median loaded Q over tuned channels [-]")
-    ax.set_title("coverage against Q: the Pareto front (up and right is better)", fontsize=9)
+    ax.set_ylabel(OBJECTIVES[other][1])
+    ax.set_title(f"coverage against {other}: the Pareto front (up and right is better)", fontsize=9)
     ax.grid(alpha=0.3)
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=7, loc="lower left")
