@@ -480,14 +480,19 @@ def q_columns(spec, sweep, tune) -> dict:
     return out
 
 
+def _grade(share_reliable: float) -> str:
+    return "ok" if share_reliable == 1.0 else ("caution" if share_reliable >= 0.5 else "unreliable")
+
+
 def verdict_columns(spec, sweep, tune) -> dict:
-    """Verdict from the sweep's reliability: ``ok`` when every sweep point of every tap and every
-    tuned channel is reliable, ``caution`` when some are not, ``unreliable`` when fewer than half
-    of the tuned channels are (or none is tuned)."""
+    """Verdict from the sweep's reliability, the worse of two grades: the share of reliable sweep
+    points (all taps) and the share of reliable tuned channels (when any is tuned). Each is
+    ``ok`` when all are reliable, ``caution`` when at least half are, else ``unreliable``."""
     sweep_ok = float(np.mean(sweep.reliable))
     tuned = int(np.sum(tune.covered))
-    chan_ok = float(np.sum(tune.reliable)) / tuned if tuned else 0.0
-    verdict = "ok" if sweep_ok == 1.0 and chan_ok == 1.0 else ("caution" if chan_ok >= 0.5 else "unreliable")
+    chan_ok = float(np.sum(tune.reliable)) / tuned if tuned else None
+    grades = [_grade(sweep_ok)] + ([_grade(chan_ok)] if chan_ok is not None else [])
+    verdict = max(grades, key=["ok", "caution", "unreliable"].index)
     srf = np.asarray(sweep.self_resonance_hz, dtype=float)
     return {"verdict": verdict, "reliable_sweep": sweep_ok, "reliable_channels": chan_ok,
             "inductance_h": [float(x) for x in sweep.inductance_h],

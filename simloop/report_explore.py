@@ -137,6 +137,16 @@ def _clean(x):
     return x
 
 
+def rank(records, objective: str) -> list[int]:
+    """Indices of the solved designs, best first: the highest objective, and among equals the
+    highest value of its Pareto partner (Q for coverage, coverage otherwise)."""
+    obj = np.array([objective_value(r, objective) for r in records], dtype=float)
+    partner = "coverage" if objective != "coverage" else pareto_against(objective)
+    second = np.array([objective_value(r, partner) for r in records], dtype=float)
+    order = np.lexsort((-np.nan_to_num(second, nan=-np.inf), -np.nan_to_num(obj, nan=-np.inf)))
+    return [int(i) for i in order if np.isfinite(obj[i])]
+
+
 def pareto_against(objective: str) -> str:
     """The objective plotted against coverage on the Pareto front: the chosen one, or Q."""
     return objective if objective != "coverage" else "q"
@@ -155,9 +165,9 @@ def summary(records, objective: str) -> dict:
     """Best design, the Pareto front of coverage against Q, counts and the budget."""
     cov = np.array([objective_value(r, "coverage") for r in records])
     q = np.array([objective_value(r, pareto_against(objective)) for r in records])
-    obj = np.array([objective_value(r, objective) for r in records])
     front = pareto_front(cov, q)
-    best = int(np.nanargmax(obj)) if np.any(np.isfinite(obj)) else None
+    order = rank(records, objective)
+    best = order[0] if order else None
     return {
         "objective": objective,
         "objective_column": OBJECTIVES[objective][0],
@@ -181,8 +191,7 @@ def write_json(path, records, axes, meta: dict, summ: dict) -> Path:
 def format_summary(records, axes, summ: dict, top: int = 5) -> str:
     """Text for the terminal: the best designs, the Pareto front and the solve budget."""
     obj = summ["objective"]
-    ok = [r for r in records if r.get("error") is None]
-    ok.sort(key=lambda r: -np.nan_to_num(objective_value(r, obj), nan=-np.inf))
+    ok = [records[i] for i in rank(records, obj)]
     lines = [f"{len(records)} designs, {summ['failed']} failed; ranked by {OBJECTIVES[obj][1]}"]
     for r in ok[:top]:
         vals = ", ".join(f"{a.key}={a.label(r[a.key])}" for a in axes)
@@ -191,7 +200,8 @@ def format_summary(records, axes, summ: dict, top: int = 5) -> str:
         gap = f", gap {r['gap_hz'] / 1e3:.0f} kHz" if r["gaps_hz"] else ""
         lines.append(f"  {vals}: coverage {100 * r['coverage']:.1f} %, median Q {q_text}, "
                      f"{r['verdict']}{gap}")
-    lines.append(f"Pareto front (coverage against {summ['pareto_against']}): {len(summ['pareto'])} designs")
+    lines.append(f"Pareto front (coverage against {_short(summ['pareto_against'])}): "
+                 f"{len(summ['pareto'])} designs")
     for r in records:
         if r.get("error") is not None and r.get("error_kind") == "spec":
             vals = ", ".join(f"{a.key}={a.label(r[a.key])}" for a in axes)
@@ -214,7 +224,12 @@ def _axis_label(axis: Axis) -> tuple[str, float]:
 
 
 def _design_label(rec, axes) -> str:
-    return ", ".join(f"{a.key.split('.')[-1]} {a.label(rec[a.key])}" for a in axes)
+    return ", ".join(f"{a.key.split('.')[-1]} {a.label(rec[a.key])}" for a in axes if len(a.values) > 1)
+
+
+def _short(objective: str) -> str:
+    """An objective's name in titles."""
+    return {"coverage": "band coverage", "q": "median loaded Q"}.get(objective, objective)
 
 
 def _integer_ticks(ax, *axes):
@@ -225,10 +240,11 @@ def _integer_ticks(ax, *axes):
             target.set_major_locator(MaxNLocator(integer=True))
 
 
-def _objective_panel(ax, records, axes, objective):
+def _objective_panel(ax, records, axes, objective, best_design=None):
     """The objective over the first one or two ordered axes (best over the other axes)."""
     ordered = [a for a in axes if a.numeric is not None]
-    name, meaning = OBJECTIVES[objective]
+    _column, meaning = OBJECTIVES[objective]
+    name = _short(objective)
     scale = 100.0 if objective == "coverage" else 1.0
     label = "band channels tuned [%]" if objective == "coverage" else meaning
     val = np.array([objective_value(r, objective) for r in records]) * scale
@@ -250,19 +266,19 @@ def _objective_panel(ax, records, axes, objective):
             ax.annotate(f"{b:.0f}", (x, y), ha="center", va="center", fontsize=7,
                         color="w" if b < np.nanmax(best) * 0.6 else "k")
         ax.figure.colorbar(sc, ax=ax, label=label)
-        if np.any(good):
-            top = int(np.nanargmax(np.where(good, best, np.nan)))
-            ax.scatter(*xy[top], s=420, marker="s", facecolors="none", edgecolors="tab:red", linewidths=1.5,
-                       label=f"best {name}")
+        best_rec = next((r for r in records if r["design"] == best_design), None)
+        if best_rec is not None:
+            ax.scatter(axis_numeric(ax_x, best_rec[ax_x.key]) / dx, axis_numeric(ax_y, best_rec[ax_y.key]) / dy,
+                       s=420, marker="s", facecolors="none", edgecolors="tab:red", linewidths=1.5)
         _integer_ticks(ax, ax_x, ax_y)
         ax.set_xlabel(xl)
         ax.set_ylabel(yl)
-        others = [a.key for a in axes if a not in (ax_x, ax_y)]
-        title = f"{name} over {ax_x.key} and {ax_y.key}"
-        if others:
-            title += f"\n(best over {', '.join(others)})"
-        ax.set_title(title, fontsize=9)
-        ax.legend(fontsize=7, loc="best")
+        others = [a.key for a in axes if a not in (ax_x, ax_y) and len(a.values) > 1]
+        title = f"{name} over {ax_x.key} and {ax_y.key}\n("
+        title += f"best over {', '.join(others)}; " if others else ""
+        ax.set_title(title + "red: the best design)", fontsize=9)
+        if np.any(~good):
+            ax.legend(fontsize=7, loc="best")
         return
     if len(ordered) == 1:
         ax_x = ordered[0]
@@ -301,7 +317,9 @@ def _pareto_panel(ax, records, axes, summ):
     index = {r["design"]: i for i, r in enumerate(records)}
     front = [index[h] for h in summ["pareto"]]
     if front:
-        ax.plot(cov[front], q[front], "k-", lw=1, zorder=1, label="Pareto front")
+        ax.plot(cov[front], q[front], "k-", lw=1, zorder=1)
+        ax.scatter(cov[front], q[front], s=80, facecolors="none", edgecolors="k", zorder=3,
+                   label="Pareto front")
         right = np.nanmax(cov[front])
         for i in front:
             left_side = cov[i] > 0.7 * right  # labels of the right-hand points go to their left
@@ -310,10 +328,10 @@ def _pareto_panel(ax, records, axes, summ):
                         ha="right" if left_side else "left")
     ax.set_xlabel("band channels tuned [%]")
     ax.set_ylabel(OBJECTIVES[other][1])
-    ax.set_title(f"coverage against {other}: the Pareto front (up and right is better)", fontsize=9)
+    ax.set_title(f"coverage against {_short(other)}: the Pareto front (up and right is better)", fontsize=9)
     ax.grid(alpha=0.3)
     if ax.get_legend_handles_labels()[0]:
-        ax.legend(fontsize=7, loc="lower left")
+        ax.legend(fontsize=7, loc="best")
     else:
         ax.text(0.5, 0.5, "no design tunes any channel", transform=ax.transAxes, ha="center")
 
@@ -324,7 +342,7 @@ def plot_explore(path, records, axes, summ, title: str) -> Path:
 
     fig = Figure(figsize=(13, 5.2), layout="constrained")
     a1, a2 = fig.subplots(1, 2)
-    _objective_panel(a1, records, axes, summ["objective"])
+    _objective_panel(a1, records, axes, summ["objective"], summ["best"])
     _pareto_panel(a2, records, axes, summ)
     fig.suptitle(title, fontsize=10)
     fig.savefig(path, dpi=120)
