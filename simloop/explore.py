@@ -60,7 +60,7 @@ __all__ = [
 ]
 
 #: Version of the row layout; part of the design hash, so a changed row is recomputed.
-ROW_VERSION = "explore-row-1"
+ROW_VERSION = "explore-row-2"
 #: Largest number of designs one exploration may ask for (grid or sample).
 MAX_DESIGNS = 10000
 #: Why a design task cannot run in a daemonic worker, and what to do.
