@@ -19,7 +19,8 @@ import numpy as np  # noqa: E402
 from simloop.geometry import build_loop  # noqa: E402
 from simloop.impedance import run_sweep  # noqa: E402
 from simloop.mesh import build_mesh  # noqa: E402
-from simloop.solve import Environment, _solve_ports, estimated_seconds, solve_ports  # noqa: E402
+from simloop.solve import (Environment, PortCurrents, PortSources, _solve_plan, estimated_seconds,  # noqa: E402
+                           solve_ports)
 from simloop.spec import loads  # noqa: E402
 
 
@@ -28,7 +29,8 @@ def bare_factorisation_seconds(mesh, frequency_hz: float) -> float:
     payload = mesh.as_payload()
     one_port = dict(payload, port_tags=payload["port_tags"][:1])
     t0 = time.perf_counter()
-    _solve_ports(one_port, Environment().as_payload(), frequency_hz)
+    _solve_plan(one_port, Environment().as_payload(), frequency_hz, [PortSources().descriptor()],
+                [{**PortCurrents().descriptor(), "name": "i"}])
     return time.perf_counter() - t0
 
 

@@ -1,22 +1,37 @@
 """Command line: parse, load, call, write. No mathematics here.
 
 Exit status: 0 done, 2 bad input (the message names the key), 1 anything else (a message, no
-traceback unless --debug).
+traceback unless --debug), including a sweep in which any MoM solve failed (unless --keep-going);
+130 interrupted (Ctrl-C), 143 terminated (SIGTERM), 141 output pipe closed.
 """
 
 from __future__ import annotations
 
 import argparse
+import codecs
+import contextlib
+import math
 import os
+import signal
 import sys
+import threading
 import time
 import traceback
+import warnings
 from importlib import resources
 from pathlib import Path
 
-from simloop.errors import SimloopError, SpecError
+from simloop.errors import CacheWarning, SimloopError, SpecError
 
 DEMO_SPEC = "demo-loop.toml"
+
+DESCRIPTION = ("Design a tuned receiving loop for the medium-wave band: from a spec file (frame, "
+               "turns, taps, wire, tuning capacitor) simloop computes each tap's impedance, which "
+               "channels the tuner reaches on which tap, the bandwidth and the signal, and how far "
+               "each number can be trusted.")
+EPILOG = ("Quantities take units: spec values such as \"31.5 in\" or \"26 1/2 in\", options such as "
+          "--field 1mV/m and --z0 50ohm. Exit status: 0 done, 2 bad input (the message names the "
+          "key), 1 anything else. See README.md.")
 
 
 class _Progress:
@@ -58,17 +73,44 @@ def _cache(args):
 
     if args.no_cache:
         return None
-    root = os.environ.get("SIMLOOP_CACHE") or str(Path("results") / ".cache")
-    return SolveCache(root)
+    env = os.environ.get("SIMLOOP_CACHE")
+    root = Path(env) if env else Path("results") / ".cache"
+    if root.exists() and not root.is_dir():
+        key = "SIMLOOP_CACHE" if env else "results/.cache"
+        raise SpecError(key, f"{str(root)!r} is a file, not a folder; point SIMLOOP_CACHE at a folder "
+                             f"or pass --no-cache")
+    cache = SolveCache(root)
+    args.cache_in_use = cache
+    return cache
 
 
 def _out_dir(args, spec) -> Path:
-    return Path(args.out) if args.out else Path("results") / spec.name
+    from simloop.report import check_out_dir
+
+    return check_out_dir(args.out if args.out is not None else Path("results") / spec.name)
+
+
+def _solve_failures(args, sweep) -> int:
+    """Report failed MoM solves on stderr; exit status 1 for them unless --keep-going."""
+    if not sweep.failures:
+        return 0
+    print(f"simloop: {len(sweep.failures)} MoM solve(s) failed; the sweep points they should have "
+          f"backed are marked unreliable (error estimate 1) and listed under 'failures' in sweep.json:",
+          file=sys.stderr)
+    for f in sweep.failures:
+        print(f"  {f.role} solve at {f.reason}", file=sys.stderr)
+    if getattr(args, "keep_going", False):
+        print("simloop: --keep-going: finished with the failures recorded", file=sys.stderr)
+        return 0
+    cache = getattr(args, "cache_in_use", None)
+    kept = " (the solves that finished are cached)" if cache is not None and cache.writable else ""
+    print(f"simloop: rerun to retry them{kept}, or pass --keep-going to accept", file=sys.stderr)
+    return 1
 
 
 def cmd_check(args) -> int:
     from simloop.impedance import prepare
-    from simloop.mesh import C0
+    from simloop.mesh import C0, segment_rule
     from simloop.spec import load
 
     spec = load(args.spec)
@@ -78,14 +120,26 @@ def cmd_check(args) -> int:
           f"{spec.frame.width_m * 1e3:.0f} × {spec.frame.height_m * 1e3:.0f} mm, "
           f"pitch {spec.winding.pitch_m * 1e3:.2f} mm, wire radius {spec.wire.radius_m * 1e3:.3f} mm, "
           f"taps at {', '.join(map(str, spec.taps.turns))} turns")
-    print(f"wire to cut: winding {geom.winding_length_m:.3f} m + leads {geom.lead_length_m:.3f} m "
-          f"= {geom.wire_length_m:.3f} m")
+    if spec.imperial:
+        from simloop.units import format_length_imperial as inch
+
+        print(f"  frame {inch(spec.frame.width_m)} × {inch(spec.frame.height_m)}, "
+              f"pitch {inch(spec.winding.pitch_m)}")
+
+        print(f"wire to cut: winding {inch(geom.winding_length_m)} + leads {inch(geom.lead_length_m)} "
+              f"= {inch(geom.wire_length_m)}")
+    else:
+        print(f"wire to cut: winding {geom.winding_length_m:.3f} m + leads {geom.lead_length_m:.3f} m "
+              f"= {geom.wire_length_m:.3f} m")
+    seg_rule = segment_rule(geom, mesh.quality, spec.sweep.stop_hz, spec.winding.turns)
     print(f"mesh ({mesh.quality}): {mesh.n_segments} segments on {mesh.segments.size} wires; "
           f"segment {mesh.shortest_m * 1e3:.2f}–{mesh.longest_m * 1e3:.2f} mm "
           f"(target {mesh.target_m * 1e3:.2f} mm)")
-    print(f"  = {mesh.shortest_m / lam_lo:.2e}–{mesh.longest_m / lam_hi:.2e} λ over the sweep, "
-          f"{mesh.winding_segment_m / spec.winding.pitch_m:.2f} × pitch, "
+    pitch = (f"{mesh.winding_segment_m / spec.winding.pitch_m:.2f} × pitch, " if spec.winding.turns > 1
+             else "")
+    print(f"  = {mesh.shortest_m / lam_lo:.2e}–{mesh.longest_m / lam_hi:.2e} λ over the sweep, {pitch}"
           f"{mesh.shortest_m / spec.wire.radius_m:.1f}–{mesh.longest_m / spec.wire.radius_m:.1f} × radius")
+    print(f"  segment length set by: {seg_rule}")
     width = max(len(r.name) for r in rules)
     for r in rules:
         print(f"  [{r.status:>4}] {r.name:<{width}}  {r.detail}")
@@ -113,12 +167,14 @@ def _spec_out_sweep(args, spec, sweep):
     from simloop.spec import load
 
     spec = spec or load(args.spec)
-    return spec, _out_dir(args, spec), sweep or _run_sweep(args, spec)
+    out = _out_dir(args, spec)  # checked before the first solve
+    return spec, out, sweep or _run_sweep(args, spec)
 
 
 def cmd_sweep(args, spec=None, sweep=None) -> int:
     from simloop.report import write_sweep
 
+    given = sweep is not None
     spec, out, result = _spec_out_sweep(args, spec, sweep)
     paths = write_sweep(result, out, z0=args.z0)
     if not args.quiet:
@@ -136,26 +192,44 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
         if result.window_note:
             print(f"note: {result.window_note}")
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, result)
+
+
+def _tune_options(args):
+    """--band and --field as the computation takes them (a band plan, V/m), checked before any solve."""
+    from simloop.tuning import band_plan
+    from simloop.units import parse_band_raster, parse_option
+
+    text = str(args.band)
+    band = band_plan(parse_band_raster(text) if ":" in text else text)
+    return band, parse_option(args.field, "field", "--field")
 
 
 def cmd_tune(args, spec=None, sweep=None) -> int:
     from simloop.report_tune import format_tune_summary, write_tune
     from simloop.tuning import run_tune
 
+    from simloop.report import output_set
+
+    given = sweep is not None
+    band, field = _tune_options(args)
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
-    result = run_tune(spec, sweep, band=args.band, field_v_per_m=args.field)
-    paths = write_tune(result, out)
+    result = run_tune(spec, sweep, band=band, field_v_per_m=field)
+    with output_set(out, "tune", {"name": spec.name}) as (stage, paths):
+        write_tune(result, stage)
     if not args.quiet:
         print(format_tune_summary(result))
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, sweep)
 
 
 def cmd_validate(args, spec=None, sweep=None) -> int:
     from simloop.report_validate import format_validate_table, write_validate
     from simloop.validation import run_validate
 
+    from simloop.report import output_set
+
+    given = sweep is not None
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     progress = _Progress(args.quiet)
     try:
@@ -163,25 +237,113 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
                               convergence=not args.no_convergence)
     finally:
         progress.close()
-    paths = write_validate(result, out)
+    with output_set(out, "validate", {"name": spec.name}) as (stage, paths):
+        write_validate(result, stage)
     if not args.quiet:
         print(format_validate_table(result))
         print(f"wrote {len(paths)} files to {out}/")
-    return 0
+    return 0 if given else _solve_failures(args, sweep)
+
+
+def cmd_study(args, spec=None, source_text=None) -> int:
+    """Sweep, tune and validate in one pass sharing every solve; all outputs plus report.html."""
+    from tqdm import tqdm
+
+    from simloop.report import output_set, write_json, write_sweep
+    from simloop.report_html import format_summary, summary_dict, write_report
+    from simloop.report_tune import write_tune
+    from simloop.report_validate import write_validate
+    from simloop.spec import load
+    from simloop.study import run_study
+
+    band, field = _tune_options(args)
+    spec = spec or load(args.spec)
+    out = _out_dir(args, spec)  # checked before the first solve
+    # Progress bars on a terminal only: quiet in logs and CI, and when stdout is for a script.
+    show = not (args.quiet or args.format == "json" or not sys.stderr.isatty())
+    progress = _Progress(not show)
+    try:
+        result = run_study(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                           band=band, field_v_per_m=field,
+                           convergence=not args.no_convergence, source_text=source_text)
+    finally:
+        progress.close()
+    summary = summary_dict(result, out)
+    with output_set(out, "study", {"name": spec.name}) as (stage, paths):
+        writers = [lambda: write_sweep(result.sweep, stage, z0=args.z0), lambda: write_tune(result.tune, stage),
+                   lambda: write_validate(result.validation, stage), lambda: [write_report(result, stage)],
+                   lambda: [write_json(stage / "study.json", summary)]]
+        for write in tqdm(writers, desc="writing outputs", unit="file set", leave=False, disable=not show):
+            write()
+    if args.format == "json":
+        import json
+
+        print(json.dumps(summary, indent=1, allow_nan=False, default=str))
+    elif not args.quiet:
+        print(format_summary(result, out))
+        print(f"wrote {len(paths)} files to {out}/")
+    return _solve_failures(args, result.sweep)
+
+
+def cmd_couple(args, spec=None, sweep=None) -> int:
+    """Loop-to-radio coupling: boost per channel, placement map, optimum spacing, the 2-port."""
+    from simloop.coupling import precheck, run_couple
+    from simloop.report import output_set
+    from simloop.report_couple import format_couple_summary, write_couple
+    from simloop.spec import load
+    from simloop.tuning import run_tune
+    from simloop.units import parse_quantity
+
+    given = sweep is not None
+    band, field = _tune_options(args)
+    frequency = getattr(args, "frequency", None)
+    frequency = parse_quantity(frequency, "frequency", "--frequency", sign="positive") if frequency else None
+    spec = spec or load(args.spec)
+    precheck(spec, frequency, getattr(args, "tap", None))  # bad --tap/--frequency/rod before any solve
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    tune = run_tune(spec, sweep, band=band, field_v_per_m=field)
+    result = run_couple(spec, sweep, tune, frequency_hz=frequency, tap_turns=getattr(args, "tap", None))
+    with output_set(out, "couple", {"name": spec.name}) as (stage, paths):
+        write_couple(result, stage, z0=args.z0)
+    if not args.quiet:
+        print(format_couple_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0 if given else _solve_failures(args, sweep)
+
+
+def cmd_pattern(args, spec=None, sweep=None) -> int:
+    """Receive patterns of the loop (and the radio's rod), their nulls and what fills them."""
+    from simloop.patterns import check_pattern_inputs, run_pattern
+    from simloop.report import output_set
+    from simloop.report_pattern import format_pattern_summary, write_pattern
+    from simloop.spec import load
+
+    given = sweep is not None
+    spec = spec or load(args.spec)
+    check_pattern_inputs(spec)  # before the sweep's long work
+    spec, out, sweep = _spec_out_sweep(args, spec, sweep)
+    progress = _Progress(args.quiet)
+    try:
+        result = run_pattern(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress)
+    finally:
+        progress.close()
+    with output_set(out, "pattern", {"name": spec.name}) as (stage, paths):
+        write_pattern(result, stage)
+    if not args.quiet:
+        print(format_pattern_summary(result))
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0 if given else _solve_failures(args, sweep)
 
 
 def cmd_demo(args) -> int:
-    """Sweep, tune and validate the bundled demo loop: every output into one folder."""
+    """The study of the bundled demo loop: every output and report.html into results/demo/."""
     from simloop.spec import loads
 
     text = resources.files("simloop").joinpath("data", DEMO_SPEC).read_text()
     spec = loads(text, source=DEMO_SPEC)
-    args.out = args.out or str(Path("results") / "demo")
-    args.band, args.field, args.no_convergence = "itu-1", 1e-3, False
-    sweep = _run_sweep(args, spec)
-    cmd_sweep(args, spec=spec, sweep=sweep)
-    cmd_tune(args, spec=spec, sweep=sweep)
-    return cmd_validate(args, spec=spec, sweep=sweep)
+    if args.out is None:
+        args.out = str(Path("results") / "demo")
+    return cmd_study(args, spec=spec, source_text=text)
 
 
 def _explore_executor(args, n_designs: int):
@@ -286,7 +448,7 @@ def cmd_explore(args) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="simloop", description=__doc__.splitlines()[0])
+    parser = argparse.ArgumentParser(prog="simloop", description=DESCRIPTION, epilog=EPILOG)
     parser.add_argument("--debug", action="store_true", help="show tracebacks")
     sub = parser.add_subparsers(dest="command", required=True)
     # --debug is accepted after the command too; SUPPRESS keeps a global --debug from being reset
@@ -298,9 +460,13 @@ def build_parser() -> argparse.ArgumentParser:
             p.add_argument("spec", help="spec file (TOML)")
         p.add_argument("--out", help="output folder (default results/<name>/)")
         p.add_argument("--workers", type=int, default=None, help="solver processes (default: all CPUs)")
-        p.add_argument("--z0", type=float, default=50.0, help="Touchstone reference impedance [Ω]")
+        p.add_argument("--z0", default="50 ohm",
+                       help="Touchstone reference impedance, e.g. 50ohm or 75Ω (a bare number is ohms; "
+                            "default 50 ohm)")
         p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
         p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+        p.add_argument("--keep-going", action="store_true",
+                       help="exit 0 although some MoM solves failed (they are still recorded and reported)")
 
     p = sub.add_parser("check", parents=[debug], help="build the mesh and print the mesh report")
     p.add_argument("spec")
@@ -310,19 +476,50 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--direct", action="store_true",
                    help="solve every point directly, below the breakdown floor too (flagged unreliable)")
     p.set_defaults(func=cmd_sweep)
+    def tune_options(p):
+        p.add_argument("--band", default="itu-1",
+                       help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
+        p.add_argument("--field", default="1 mV/m",
+                       help="incident field strength for the tuner voltage, with its unit: 1mV/m, "
+                            "50uV/m, 0.01V/m (a bare number is V/m; default 1 mV/m)")
+
     p = sub.add_parser("tune", parents=[debug], help="band coverage per tap, channel tuning chart, bandwidth, tuner voltage")
     common(p)
-    p.add_argument("--band", default="itu-1",
-                   help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
-    p.add_argument("--field", type=float, default=1e-3,
-                   help="incident field strength for the tuner voltage [V/m] (default 1 mV/m)")
+    tune_options(p)
     p.set_defaults(func=cmd_tune)
     p = sub.add_parser("validate", parents=[debug], help="MoM against handbook formulas and the quasi-static model")
     common(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
-    p = sub.add_parser("demo", parents=[debug], help="sweep, tune and validate the bundled demo loop into results/demo/")
+
+    def study_options(p):
+        tune_options(p)
+        p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
+        p.add_argument("--format", choices=("text", "json"), default="text",
+                       help="summary on stdout: short text, or JSON for scripts")
+
+    p = sub.add_parser("couple", parents=[debug], help="loop-to-radio coupling: boost, placement map, 2-port")
+    common(p)
+    tune_options(p)
+    p.add_argument("--tap", type=int, default=None, help="tap (in turns) for the single-frequency studies")
+    p.add_argument("--frequency", default=None,
+                   help='frequency of the capacitor, distance and placement studies, e.g. "1 MHz" '
+                        "(default: the channel nearest 1 MHz)")
+    p.set_defaults(func=cmd_couple)
+
+    p = sub.add_parser("pattern", parents=[debug],
+                       help="receive patterns of the loop (and the radio's rod), their nulls and what fills them")
+    common(p)
+    p.set_defaults(func=cmd_pattern)
+
+    p = sub.add_parser("study", parents=[debug],
+                       help="sweep, tune and validate in one pass; all outputs plus report.html")
+    common(p)
+    study_options(p)
+    p.set_defaults(func=cmd_study)
+    p = sub.add_parser("demo", parents=[debug], help="the study of the bundled demo loop into results/demo/")
     common(p, spec=False)
+    study_options(p)
     p.set_defaults(func=cmd_demo)
     p = sub.add_parser("explore", parents=[debug], help="vary spec keys: one sweep and tune per design, in parallel")
     p.add_argument("spec", help="base spec file (TOML)")
@@ -346,34 +543,103 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _Terminated(BaseException):
+    """SIGTERM, raised in the main thread so that every worker is stopped on the way out."""
+
+
+def _on_sigterm(signum, frame):
+    raise _Terminated
+
+
+_FALLBACK = {"µ": "u", "Ω": "Ohm", "λ": "lambda", "×": "x", "–": "-", "—": "-", "±": "+/-", "≥": ">=",
+             "≤": "<=", "→": "->", "≈": "~", "κ": "kappa", "π": "pi", "…": "...", "·": "*", "²": "^2",
+             "³": "^3", "⁴": "^4", "⁻": "^-", "¹": "1", "ε": "eps", "Δ": "d", "θ": "theta", "φ": "phi"}
+
+
+def _transliterate(exc):
+    """Codec error handler: spell the symbols we print in ASCII when the terminal cannot show them."""
+    text = exc.object[exc.start:exc.end]
+    return "".join(_FALLBACK.get(c, "?") for c in text), exc.end
+
+
+codecs.register_error("simloop-ascii", _transliterate)
+
+
+def _setup_streams() -> None:
+    for stream in (sys.stdout, sys.stderr):
+        if hasattr(stream, "reconfigure"):
+            stream.reconfigure(errors="simloop-ascii")
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"simloop: warning: {message}", file=sys.stderr)
+
+
+def _report(args, text: str, status: int) -> int:
+    print(text, file=sys.stderr)
+    if getattr(args, "debug", False):
+        traceback.print_exc()
+    return status
+
+
+def _check_options(args) -> None:
+    if hasattr(args, "z0"):
+        from simloop.units import parse_option
+
+        args.z0 = parse_option(args.z0, "resistance", "--z0")
+    z0 = getattr(args, "z0", 50.0)
+    if not (math.isfinite(z0) and z0 > 0):
+        raise SpecError("--z0", f"{z0} must be a finite number > 0 (reference impedance in ohms)")
+    if getattr(args, "workers", None) is not None and args.workers < 1:
+        raise SpecError("--workers", f"{args.workers} must be ≥ 1")
+
+
+def _interrupted(args) -> str:
+    cache = getattr(args, "cache_in_use", None)
+    kept = (f"every finished solve is kept in the cache ({cache.root})" if cache is not None and cache.writable
+            else "no usable cache: the solves of this run are lost")
+    return f"simloop: interrupted; {kept}"
+
+
 def main(argv=None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    _setup_streams()
+    in_main = threading.current_thread() is threading.main_thread()
+    old_term = signal.signal(signal.SIGTERM, _on_sigterm) if in_main else None
+    args = argparse.Namespace(debug=False)
+    with warnings.catch_warnings():  # restores the filters and showwarning on the way out
+        warnings.simplefilter("always", CacheWarning)  # a cache problem is said, and the run goes on
+        warnings.showwarning = _show_warning
+        try:
+            return _run(argv, args)
+        finally:
+            if old_term is not None:
+                signal.signal(signal.SIGTERM, old_term)
+
+
+def _run(argv, args) -> int:
+    """Parse and run one command; every outcome becomes an exit status (see the module docstring)."""
     try:
-        if getattr(args, "z0", 50.0) <= 0:
-            raise SpecError("--z0", f"{args.z0} must be > 0 (reference impedance in ohms)")
-        if getattr(args, "workers", None) is not None and args.workers < 1:
-            raise SpecError("--workers", f"{args.workers} must be ≥ 1")
-        return args.func(args)
+        args = build_parser().parse_args(argv)
+        _check_options(args)
+        status = args.func(args)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handlers, not at interpreter exit
+        return status
     except SpecError as exc:
-        print(f"simloop: bad input\n{exc}", file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 2
+        return _report(args, f"simloop: bad input\n{exc}", 2)
     except SimloopError as exc:
-        print(f"simloop: {exc}", file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 1
+        return _report(args, f"simloop: {exc}", 1)
     except KeyboardInterrupt:
-        print("simloop: interrupted; solved frequencies are kept in the cache", file=sys.stderr)
-        return 130
+        return _report(args, _interrupted(args), 130)
+    except _Terminated:
+        return _report(args, _interrupted(args).replace("interrupted", "terminated (SIGTERM)"), 143)
+    except BrokenPipeError:
+        # the reader went away (``simloop check spec | head -1``): nothing left to say to it
+        with contextlib.suppress(OSError, ValueError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
     except Exception as exc:  # noqa: BLE001 - the CLI promises no traceback without --debug
-        print(f"simloop: unexpected error: {type(exc).__name__}: {exc} (run with --debug for details)",
-              file=sys.stderr)
-        if args.debug:
-            traceback.print_exc()
-        return 1
+        return _report(args, f"simloop: unexpected error: {type(exc).__name__}: {exc} "
+                             f"(run with --debug for details)", 1)
 
 
 if __name__ == "__main__":

@@ -35,3 +35,7 @@ class SolverError(SimloopError):
 
 class ValidityWarning(UserWarning):
     """An input lies outside the range where a model or formula is valid."""
+
+
+class CacheWarning(UserWarning):
+    """The solve cache cannot be used (unwritable, full): the run carries on without it."""

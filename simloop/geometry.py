@@ -306,7 +306,22 @@ def check_clearances(geom: LoopGeometry) -> list[tuple[str, str]]:
     end point are joined and exempt.
     """
     n = len(geom.kinds)
-    i, j = np.triu_indices(n, k=1)
+    problems = []
+    # All pairs at once need ~200 bytes a pair (GBs for a few thousand pieces): take them in
+    # blocks of rows of about a million pairs.
+    rows = np.arange(n)
+    block = max(1, 1_000_000 // max(n, 1))
+    for first in range(0, n, block):
+        i, j = np.nonzero(rows[first:first + block, None] < rows[None, :])
+        i = i + first
+        problems += _clearance_block(geom, i, j, 3 - len(problems))
+        if len(problems) >= 3:
+            break
+    return problems
+
+
+def _clearance_block(geom: LoopGeometry, i, j, most: int) -> list[tuple[str, str]]:
+    """Problems among the piece pairs (i, j) (see :func:`check_clearances`), at most ``most``."""
     dist = segment_distance_m(geom.starts[i], geom.ends[i], geom.starts[j], geom.ends[j])
     ends_i = np.stack([geom.starts[i], geom.ends[i]], axis=1)
     ends_j = np.stack([geom.starts[j], geom.ends[j]], axis=1)
@@ -319,7 +334,7 @@ def check_clearances(geom: LoopGeometry) -> list[tuple[str, str]]:
     limit = np.where(both_winding, 2.0 * geom.wire_radius_m, 6.0 * geom.wire_radius_m)
     bad = np.flatnonzero(~joined & (dist < limit))
     problems = []
-    for b in bad[:3]:
+    for b in bad[:most]:
         ki, kj = geom.kinds[i[b]], geom.kinds[j[b]]
         key = "leads.offset" if "winding" not in (ki, kj) or ki != kj else "winding.pitch"
         problems.append(

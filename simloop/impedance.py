@@ -1,6 +1,6 @@
 """The impedance sweep: where to trust the MoM, what to fit, and how far to trust every point.
 
-PyNEC is right for these loops only inside a window (notes measured with PyNEC 2.3.4):
+PyNEC is right for these loops only inside a window (measured with PyNEC 2.3.4, docs/notes/pynec.md):
 
 * segments ≲ 2 × pitch, or the inductance comes out low (the pitch rule, a mesh property);
 * segments ≥ 7e-5 λ (never < 5e-5 λ), or the reactance breaks down (a frequency floor);
@@ -49,6 +49,10 @@ RELIABLE_BELOW = 0.05
 #: predicted 0.7–1 MHz within 0.3 %; fits near the SRF were 0.7–2 % off).
 WINDOW_TOP = 0.6
 WINDOW_POINTS = 5
+#: Largest turn perimeter, in wavelengths, at which the model is fitted: the fitted radiation term
+#: is the small-loop law R_r ∝ f⁴, which holds for a perimeter below about λ/10 (Balanis, *Antenna
+#: Theory*, 3rd ed., 2005, sec. 5.2); at 0.2 λ the MoM radiation resistance is ~29 % above it.
+SMALL_LOOP_PERIMETER = 0.1
 #: Port matrices less reciprocal than this make every point of the sweep unreliable.
 ASYMMETRY_LIMIT = 0.15
 
@@ -111,6 +115,15 @@ class SolveRecord:
 
 
 @dataclass(frozen=True)
+class SolveFailure:
+    """One MoM solve the sweep asked for and did not get (worker crashed, hung, returned NaN)."""
+
+    frequency_hz: float
+    role: str  # "probe", "window" or "direct"
+    reason: str
+
+
+@dataclass(frozen=True)
 class SweepResult:
     """Impedance of every tap over the sweep, with provenance and error estimates.
 
@@ -136,6 +149,9 @@ class SweepResult:
         κ applied to each tap (impedances scale as √(κ_i κ_j)); 1 where none was needed. [-]
     uncorrected_inductance_h : ndarray, shape (k,)
         L0 of the MoM model before the junction correction. [H]
+    failures : tuple of SolveFailure
+        Solves that failed. A sweep point whose direct solve failed carries the model value with
+        error estimate 1 and is never reliable.
     """
 
     name: str
@@ -157,6 +173,7 @@ class SweepResult:
     solves: tuple[SolveRecord, ...] = ()
     window_note: str = ""
     environment: Environment = field(default_factory=Environment)
+    failures: tuple[SolveFailure, ...] = ()
 
     @property
     def inductance_h(self) -> np.ndarray:
@@ -280,6 +297,12 @@ def junction_correction(spec, geom: LoopGeometry, mesh: Mesh, env: Environment, 
     return kappa
 
 
+def _turn_perimeter_m(geom: LoopGeometry) -> float:
+    """Wire length of the first (outer) turn. [m]"""
+    kinds = np.array(geom.kinds)
+    return float(geom.lengths_m[(kinds == "winding") & (geom.turn == 0)].sum())
+
+
 def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = None,
               progress=None, direct: bool = False, correct_junctions: bool = True) -> SweepResult:
     """Sweep the impedance of every tap of a loop spec.
@@ -304,6 +327,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     resistivity = env.resistivity_ohm_m
     solved: dict[float, PortSolution] = {}
     records: list[SolveRecord] = []
+    failed: list[SolveFailure] = []
 
     def solve(freqs, role):
         freqs = _unique(freqs, solved)
@@ -315,6 +339,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         for f, res in zip(freqs, out):
             if isinstance(res, SolverError):
                 failures[f] = res
+                failed.append(SolveFailure(f, role, str(res)))
                 continue
             solved[f] = res
             records.append(SolveRecord(f, role, res.seconds, res.cached, res.asymmetry,
@@ -347,8 +372,11 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     srf = _lowest_resonance(model, 40 * f7)
 
     # 2. The fit window, moved once more if the fitted resonance lands below the first guess.
+    # The fitted radiation term is the small-loop law (∝ f⁴), which holds only while a turn is
+    # electrically small: the window stays below perimeter ≤ SMALL_LOOP_PERIMETER λ (Balanis).
+    f_small = SMALL_LOOP_PERIMETER * C0 / _turn_perimeter_m(geom)
     for _ in range(3):
-        f_hi = WINDOW_TOP * srf if srf is not None else 1.6 * f7
+        f_hi = min(WINDOW_TOP * srf if srf is not None else 1.6 * f7, f_small)
         f_lo = f7
         if f_lo > f_hi / 1.3:
             f_lo = max(f5, f_hi / 1.3)
@@ -376,7 +404,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     # 3. Direct MoM above the floor.
     f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)
     floor = 0.0 if direct else f7
-    solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
+    lost = solve([float(f) for f in f_sweep if f >= floor * (1 - 1e-9)], "direct")
 
     # 4. Junction correction: each tap's own circuit, without the open wires hanging from it.
     k = len(geom.tap_turns)
@@ -414,6 +442,8 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
             source[m] = "model"
             base = eps_l
         eps[m] = np.minimum(base * amplify[m], 1.0)
+        if any(abs(g - f) <= 1e-9 * f for g in lost):  # its direct solve failed: no backing
+            eps[m] = 1.0
     if worst_asymmetry > ASYMMETRY_LIMIT:
         eps[:] = 1.0
         note = (note + "; " if note else "") + (
@@ -440,4 +470,5 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         solves=tuple(sorted(records, key=lambda r: r.frequency_hz)),
         window_note=note,
         environment=env,
+        failures=tuple(sorted(failed, key=lambda r: r.frequency_hz)),
     )

@@ -22,9 +22,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from simloop.constants import MAX_SEGMENTS  # noqa: F401 - the cap, defined once (docs/references.md §13)
+from simloop.constants import SPEED_OF_LIGHT_M_S as C0  # speed of light [m/s]
 from simloop.geometry import DROP, WINDING, LoopGeometry
 
-C0 = 299_792_458.0  #: speed of light [m/s]
 
 #: quality -> (segment length as a multiple of the pitch, segments per turn at least)
 QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
@@ -33,6 +34,51 @@ QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
 #: trusted (measured with PyNEC 2.3.4: L error ≤ 0.1 % at 1e-4 λ, 0.1–1 % at 5e-5 λ).
 FLOOR_TRUSTED = 7e-5
 FLOOR_ABSOLUTE = 5e-5
+
+
+
+def solve_cost(n_segments: float) -> tuple[float, float]:
+    """CPU time and memory of one frequency with PyNEC 2.3.4 on one core. [s], [B]
+
+    Measured for this project (fill + LU); the memory is dominated by the complex matrix and its
+    factorisation copy, 32 bytes per matrix element, plus about 75 MB for the process.
+    """
+    n = float(n_segments)
+    return 1.8e-7 * n**2 + 2.9e-10 * n**3, 75e6 + 32.0 * n**2
+
+
+def estimate_segments(width_m: float, height_m: float, turns: float, pitch_m: float, style: str,
+                      quality: str, stop_hz: float, segment_length_m: float | None = None) -> tuple[float, str]:
+    """Lower bound of a spec's segment count, from the spec's numbers alone (nothing is built).
+
+    The winding alone (leads left out) is cut at the longest segment the mesh rules of
+    :func:`target_segment_m` allow, so the true mesh has at least this many segments. Used to
+    refuse a spec too large to solve before its geometry (whose clearance check grows as the
+    square of the number of pieces) is built.
+
+    Returns
+    -------
+    (segments, limit) : (float, str)
+        The bound (may be inf for absurd input) and which rule sets the segment length:
+        ``"segment_length"``, ``"turn"`` (segments per turn), ``"pitch"`` or ``"wavelength"``.
+    """
+    perimeter = 2.0 * (float(width_m) + float(height_m))
+    try:
+        t = float(turns)
+    except OverflowError:
+        t = float("inf")
+    if style == "spiral":  # each turn inset by the pitch on every side: 8·pitch shorter than the last
+        length = max(t * perimeter - 4.0 * pitch_m * t * (t - 1.0), perimeter)
+    else:
+        length = t * perimeter
+    if segment_length_m is not None:
+        return length / float(segment_length_m), "segment_length"
+    pitch_factor, per_turn = QUALITY[quality]
+    limits = {"turn": perimeter / per_turn, "wavelength": 0.05 * C0 / float(stop_hz)}
+    if t > 1:
+        limits["pitch"] = pitch_factor * float(pitch_m)
+    limit = min(limits, key=limits.get)
+    return length / limits[limit], limit
 
 
 @dataclass(frozen=True)
@@ -126,6 +172,24 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     if turns > 1:
         delta = min(delta, pitch_factor * geom.pitch_m)
     return min(delta, 0.05 * C0 / stop_hz)
+
+
+def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -> str:
+    """Which rule of :func:`target_segment_m` sets the segment length (for the mesh report).
+
+    A single turn has no neighbouring turn, so the pitch rule does not apply to it.
+    """
+    pitch_factor, per_turn = QUALITY[quality]
+    kinds = np.array(geom.kinds)
+    perimeter = float(geom.lengths_m[(kinds == WINDING) & (geom.turn == 0)].sum())
+    per_drop = 2.0 if quality == "draft" else 3.0
+    options = {f"{per_turn} segments per turn (perimeter / {per_turn})": perimeter / per_turn,
+               f"the shallowest lead drop in {per_drop:g} segments": float(geom.lengths_m[kinds == DROP].min()) / per_drop,
+               "0.05 λ at the top frequency": 0.05 * C0 / stop_hz}
+    if turns > 1:
+        options[f"{pitch_factor:g} × pitch (neighbouring turns)"] = pitch_factor * geom.pitch_m
+    rule = min(options, key=options.get)
+    return rule + ("" if turns > 1 else "; a single turn has no neighbouring turn, so no pitch rule")
 
 
 def build_mesh(geom: LoopGeometry, target_m: float, quality: str = "standard",
@@ -227,11 +291,10 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
                   f"sweep points below it come from the fitted model")
     rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail))
     n = mesh.n_segments
-    seconds = 1.8e-7 * n**2 + 2.9e-10 * n**3
-    memory_mb = 75 + 32 * n**2 / 1e6
-    rules.append(Rule("size", "pass" if n <= 6000 else "warn",
-                      f"{n} segments: about {seconds:.1f} s and {memory_mb:.0f} MB per frequency "
-                      f"(PyNEC 2.3.4, one core)"))
+    seconds, memory_b = solve_cost(n)
+    rules.append(Rule("size", "pass" if n <= 6000 else ("warn" if n <= MAX_SEGMENTS else "fail"),
+                      f"{n} segments: about {seconds:.1f} s and {memory_b / 1e6:.0f} MB per frequency "
+                      f"(PyNEC 2.3.4, one core); at most {MAX_SEGMENTS} are solved"))
     return rules
 
 

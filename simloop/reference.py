@@ -43,6 +43,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
+from simloop.constants import MU0_H_M as MU0, SPEED_OF_LIGHT_M_S as SPEED_OF_LIGHT  # docs/references.md §13
 from simloop.errors import ValidityWarning
 
 __all__ = [
@@ -75,12 +76,6 @@ __all__ = [
     "self_inductance_straight_wire",
     "skin_depth",
 ]
-
-MU0 = 4e-7 * np.pi
-"""Magnetic constant as used throughout the project (pre-2019 exact value). [H/m]"""
-
-SPEED_OF_LIGHT = 299_792_458.0
-"""Speed of light in vacuum. [m/s]"""
 
 RESISTIVITY_COPPER_IEC60028 = 1.0 / 58e6
 """Resistivity of the IEC 60028 international annealed copper standard at 20 °C. [Ω·m]"""
@@ -555,7 +550,7 @@ def box_coil_pieces(width_m, height_m, turns, pitch_m):
     y_k = (k − (N−1)/2)·pitch, all carrying the same current in the same sense (right-handed
     about +y), i.e. N closed turns in series with the turn-to-turn steps and the terminal leads
     left out. With ``"hf"`` self terms in :func:`inductance_partial_sum` this is the idealised
-    path that reproduces the REFERENCES §1 box-coil check values to all printed digits
+    path that reproduces the docs/references.md §1 box-coil check values to all printed digits
     (303.3496, 254.7587, 594.4700 µH against 303.350, 254.759, 594.470). Two helical variants
     do not: closing each turn onto the next with a slanted last side gives 303.3511, 254.7644,
     594.4734 µH, and closed turns joined by axial step pieces give 303.388, 254.847, 594.529 µH.
@@ -693,12 +688,12 @@ def inductance_square_coil_grover1946(side_m, turns, winding_length_m):
               + 0.3333\frac{(N+1)\,b}{s N}\right]
 
     A current-sheet formula, for short coils (b ≪ s). Within 1–4 % of the partial-inductance sum
-    depending on whether b is taken as N·pitch or (N−1)·pitch (REFERENCES §1).
+    depending on whether b is taken as N·pitch or (N−1)·pitch (docs/references.md §1).
 
     References
     ----------
     .. [1] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946 (square coils); the
-       constants are from memory and were confirmed numerically (REFERENCES §1).
+       constants are from memory and were confirmed numerically (docs/references.md §1).
     """
     s_cm = 100 * _require_positive("side_m", side_m)
     n = _require_positive("turns", turns)
@@ -1251,7 +1246,7 @@ def q_loaded(q_coil, q_capacitor, *q_other):
 # Self-capacitance
 # --------------------------------------------------------------------------------------------
 
-# Medhurst (1947), table of H against l/D (REFERENCES §5; the 0.8–1.0 entry as two nodes).
+# Medhurst (1947), table of H against l/D (docs/references.md §5; the 0.8–1.0 entry as two nodes).
 _MEDHURST_LD = np.array([0.1, 0.2, 0.3, 0.5, 0.8, 1.0, 2.0, 3.0, 5.0, 10.0])
 _MEDHURST_H = np.array([0.96, 0.70, 0.60, 0.50, 0.46, 0.46, 0.50, 0.61, 0.81, 1.32])
 
@@ -1276,7 +1271,7 @@ def self_capacitance_medhurst1947(length_m, diameter_m):
     H is interpolated piecewise-linearly in log(l/D) between the tabulated points
     (0.1, 0.2, 0.3, 0.5, 0.8, 1.0, 2, 3, 5, 10), and extrapolated linearly in log(l/D) from the
     end intervals outside 0.1–10 with a :class:`~simloop.errors.ValidityWarning`. Meant for
-    solenoid-shaped coils (e.g. the rod coil), not for large flat box loops (REFERENCES §5).
+    solenoid-shaped coils (e.g. the rod coil), not for large flat box loops (docs/references.md §5).
 
     References
     ----------

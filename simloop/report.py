@@ -2,15 +2,22 @@
 
 from __future__ import annotations
 
+import contextlib
 import csv
+import fcntl
+import hashlib
 import json
 import math
 import os
+import shutil
+import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
 
 from simloop import __version__
+from simloop.errors import SpecError
 from simloop.impedance import RELIABLE_BELOW, SweepResult
 
 
@@ -39,15 +46,164 @@ def _finite(value):
 
 
 def write_json(path: Path, data: dict) -> Path:
-    """Write JSON atomically (temporary file, then rename), so a crash never leaves half a file.
+    """Write JSON atomically (a temporary file of a unique name beside it, then rename).
 
-    A value that is not a finite number is written as null: a quantity the tool could not
-    determine is reported as absent, never as a number.
+    A crash never leaves half a file, two writers never share a temporary, and a symlink planted
+    anywhere near cannot redirect the write. A value that is not a finite number is written as
+    null: a quantity the tool could not determine is reported as absent, never as a number.
     """
-    tmp = path.with_suffix(path.suffix + ".tmp")
-    tmp.write_text(json.dumps(_finite(data), indent=1, allow_nan=False) + "\n")
-    os.replace(tmp, path)
+    return _write_atomic(Path(path), (json.dumps(_finite(data), indent=1, allow_nan=False) + "\n").encode())
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _write_atomic(path: Path, blob: bytes) -> Path:
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}-", suffix=".tmp")
+    try:
+        os.fchmod(fd, 0o666 & ~_umask())  # as an ordinary file would be (mkstemp makes it private)
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(blob)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
     return path
+
+
+# ------------------------------------------------------------------------------------------------
+# Output folders: checked before any work, written as one consistent set per command.
+# ------------------------------------------------------------------------------------------------
+
+MANIFEST = "manifest.json"
+_LOCK = ".simloop.lock"
+_STAGE_PREFIX = ".simloop-stage-"
+#: Staging folders older than this belong to a run that was killed while writing. [s]
+_STALE_STAGE_S = 3600.0
+#: Files an older sweep (before the manifest) may have left that a new one must not leave beside its set.
+_LEGACY = {"sweep": ("tap-*.s1p", "taps.s*p")}
+
+
+def check_out_dir(out) -> Path:
+    """Make sure results can be written into ``out`` before any long work; nothing is created.
+
+    Raises
+    ------
+    SpecError
+        Key ``--out``: empty, an existing file or device, or a place where no folder can be made
+        or written (the nearest existing folder above it is probed with a temporary file).
+    """
+    if out is None or str(out).strip() == "":
+        raise SpecError("--out", "'' is empty; give a folder (or leave the option out for results/<name>/)")
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise SpecError("--out", f"{str(out)!r} exists and is not a folder")
+    probe_dir = out.absolute()
+    while not probe_dir.exists():
+        probe_dir = probe_dir.parent
+    if not probe_dir.is_dir():
+        raise SpecError("--out", f"{str(out)!r} cannot be made: {str(probe_dir)!r} is not a folder")
+    try:
+        fd, probe = tempfile.mkstemp(dir=probe_dir, prefix=".simloop-probe-")
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise SpecError("--out", f"{str(out)!r} cannot be written: {exc.strerror or exc} "
+                                 f"(in {str(probe_dir)!r})") from None
+    return out
+
+
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with path.open("rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _read_manifest(out: Path) -> dict:
+    try:
+        data = json.loads((out / MANIFEST).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {}
+    return data if isinstance(data, dict) and isinstance(data.get("commands"), dict) else {}
+
+
+@contextlib.contextmanager
+def _locked(out: Path):
+    """An exclusive lock on the output folder (several runs into one folder publish in turn)."""
+    fd = os.open(out / _LOCK, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW, 0o644)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX)
+        yield
+    finally:
+        os.close(fd)  # releases the lock
+
+
+def _publish(stage: Path, out: Path, command: str, info: dict) -> list[Path]:
+    """Move a finished set from ``stage`` into ``out``, drop this command's files of an earlier
+    run that are not in the new set, and record the set with hashes in the manifest."""
+    names = sorted(p.name for p in stage.iterdir() if p.is_file() and not p.is_symlink())
+    files = {n: {"sha256": _sha256(stage / n), "bytes": (stage / n).stat().st_size} for n in names}
+    with _locked(out):
+        manifest = _read_manifest(out)
+        commands = manifest.get("commands", {})
+        before = set(commands.get(command, {}).get("files", {}))
+        if command not in commands:
+            before |= {p.name for pattern in _LEGACY.get(command, ()) for p in out.glob(pattern)}
+        kept = {n for c, entry in commands.items() if c != command for n in entry.get("files", {})}
+        for n in names:
+            os.replace(stage / n, out / n)
+        for n in sorted(before - set(names) - kept):
+            with contextlib.suppress(FileNotFoundError, IsADirectoryError):
+                (out / n).unlink()
+        commands[command] = {**info, "written_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+                             "files": files}
+        write_json(out / MANIFEST, {"simloop_version": __version__, "commands": commands})
+    return [out / n for n in names]
+
+
+def _clean_stale_stages(out: Path) -> None:
+    now = time.time()
+    for old in out.glob(_STAGE_PREFIX + "*"):
+        with contextlib.suppress(OSError):
+            if old.is_dir() and not old.is_symlink() and now - old.lstat().st_mtime > _STALE_STAGE_S:
+                shutil.rmtree(old)
+
+
+@contextlib.contextmanager
+def output_set(out, command: str, info: dict | None = None):
+    """Write one command's outputs as a set: yields a private staging folder inside ``out``.
+
+    Write every file of the set into the yielded folder. When the block ends normally the files
+    are renamed into ``out`` together (each rename atomic; concurrent runs publish one after the
+    other under a lock), files this command wrote in an earlier run and not now are removed, and
+    ``manifest.json`` lists the current set of every command with SHA-256 hashes. When the block
+    raises, or the process is killed, nothing in ``out`` changes. The staging folder is created
+    with a fresh random name (mode 0700), so nothing planted in ``out`` can redirect a write.
+
+    Yields
+    ------
+    (stage, published) : (Path, list of Path)
+        The staging folder, and a list that holds the published paths in ``out`` once the block
+        has ended.
+    """
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    _clean_stale_stages(out)
+    stage = Path(tempfile.mkdtemp(dir=out, prefix=_STAGE_PREFIX))
+    published: list[Path] = []
+    try:
+        yield stage, published
+        published.extend(_publish(stage, out, command, info or {}))
+    finally:
+        shutil.rmtree(stage, ignore_errors=True)
 
 
 def mesh_summary(result: SweepResult) -> dict:
@@ -114,24 +270,26 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
              "asymmetry": float(s.asymmetry), "segment_wavelengths": s.segment_wavelengths}
             for s in result.solves
         ],
+        "failures": [{"frequency_hz": f.frequency_hz, "role": f.role, "reason": f.reason}
+                     for f in result.failures],
     }
 
 
 def write_sweep(result: SweepResult, out: Path, z0: float = 50.0) -> list[Path]:
-    """Write sweep.json, tap-<n>.s1p, taps.s<k>p, impedance.csv and impedance.png into ``out``."""
-    out.mkdir(parents=True, exist_ok=True)
-    written = [write_json(out / "sweep.json", sweep_dict(result, z0))]
-    for i, n in enumerate(result.tap_turns):
-        net = result.tap_network(i, z0)
-        net.write_touchstone(filename=f"tap-{n}", dir=str(out), skrf_comment=False)
-        written.append(out / f"tap-{n}.s1p")
-    k = len(result.tap_turns)
-    result.to_network(z0).write_touchstone(filename="taps", dir=str(out), skrf_comment=False)
-    written.append(out / f"taps.s{k}p")
-    written.append(_write_impedance_csv(result, out / "impedance.csv"))
-    from simloop.plots import plot_impedance
+    """Write sweep.json, tap-<n>.s1p, taps.s<k>p, impedance.csv and impedance.png into ``out``.
 
-    written.append(plot_impedance(result, out / "impedance.png"))
+    The files are written as one set (:func:`output_set`): a failure or a kill while writing
+    leaves the previous set untouched, and tap files of an earlier run with other taps go.
+    """
+    with output_set(out, "sweep", {"name": result.name, "reference_impedance_ohm": z0}) as (stage, written):
+        write_json(stage / "sweep.json", sweep_dict(result, z0))
+        for i, n in enumerate(result.tap_turns):
+            result.tap_network(i, z0).write_touchstone(filename=f"tap-{n}", dir=str(stage), skrf_comment=False)
+        result.to_network(z0).write_touchstone(filename="taps", dir=str(stage), skrf_comment=False)
+        _write_impedance_csv(result, stage / "impedance.csv")
+        from simloop.plots import plot_impedance
+
+        plot_impedance(result, stage / "impedance.png")
     return written
 
 

@@ -1,6 +1,6 @@
 """Writing the results of `simloop tune`: tuning.json, tuning.csv, tuning.png, and the summary.
 
-JSON keys carry SI units (DESIGN §2); the CSV is the channel chart a builder prints, in the units
+JSON keys carry SI units (the unit is in the key's name); the CSV is the channel chart a builder prints, in the units
 one reads off a dial (kHz, pF, mm), each named in its column header.
 """
 
@@ -16,7 +16,7 @@ from simloop import __version__
 from simloop.impedance import RELIABLE_BELOW
 from simloop.report import _num, write_json
 from simloop.tuner import PlateTuner
-from simloop.tuning import TuneResult
+from simloop.tuning import RANGE_MARGIN, TuneResult
 
 __all__ = ["format_tune_summary", "tune_dict", "write_tune"]
 
@@ -28,12 +28,12 @@ def _opt(x) -> float | None:
 
 def _tuner_dict(t) -> dict:
     out = {"kind": t.kind, "source": t.source, "description": t.describe(), "min_f": t.min_f,
-           "max_f": t.max_f, "q": t.q}
+           "max_f": t.max_f, "q": t.q, "q_source": t.q_source}
     if isinstance(t, PlateTuner):
         out.update({
             "plate_width_m": t.plate_width_m, "plate_length_m": t.plate_length_m, "gaps": t.gaps,
             "dielectric_thickness_m": t.dielectric_thickness_m, "permittivity": t.permittivity,
-            "travel_m": t.travel_m, "stray_f": t.stray_f, "capacitance_per_length_f_per_m": t.capacitance_per_m,
+            "travel_m": t.travel_m, "stray_f": t.stray_f, "dielectric": t.dielectric, "capacitance_per_length_f_per_m": t.capacitance_per_m,
             "law": "C(x) = stray + gaps·ε0·ε_r·width·min(x, length)/thickness; x from no overlap; "
                    "fringing neglected",
         })
@@ -77,7 +77,29 @@ def _channel(r: TuneResult, j: int) -> dict:
         out["position_m"] = _opt(r.position_m[j])
         out["position_step_m"] = _opt(r.position_step_m[j])
         out["position_error_m"] = _opt(r.capacitance_error_f[j] / r.tuner.capacitance_per_m)
+        if r.imperial:
+            out["position_in"] = _opt(r.position_m[j] / 0.0254)
     return out
+
+
+def _used_span(r: TuneResult, i: int) -> list[float] | None:
+    """First and last channel the chart tunes on tap index i. [Hz]"""
+    f = r.frequencies_hz[r.channel_tap_index == i]
+    return [float(f[0]), float(f[-1])] if f.size else None
+
+
+def chart_selection(r: TuneResult, rows: int = 24) -> np.ndarray:
+    """Channels shown in the short chart, the same in the terminal and in tuning.png: both ends
+    of every tap's span and of every gap, filled up evenly through the band to about ``rows``."""
+    m = r.frequencies_hz.size
+    idx = r.channel_tap_index
+    keep = {0, m - 1}
+    for j in range(1, m):
+        if idx[j] != idx[j - 1]:
+            keep.update((j - 1, j))
+    spread = np.linspace(0, m - 1, max(rows - len(keep), 2)).round().astype(int)
+    keep.update(int(j) for j in spread)
+    return np.array(sorted(keep))
 
 
 def _model_error_dict(r: TuneResult) -> dict:
@@ -104,7 +126,7 @@ def _model_error_dict(r: TuneResult) -> dict:
 
 
 def tune_dict(r: TuneResult) -> dict:
-    """Everything `simloop tune` reports, as JSON-ready data (keys of DESIGN §6)."""
+    """Everything `simloop tune` reports, as JSON-ready data (keys listed in README.md)."""
     taps = {}
     for i, n in enumerate(r.tap_turns):
         taps[str(n)] = {
@@ -121,6 +143,7 @@ def tune_dict(r: TuneResult) -> dict:
             "self_resonance_hz": _opt(r.self_resonance_hz[i]),
             "self_capacitance_f": _opt(r.self_capacitance_f[i]),
             "channels": int(np.sum(r.channel_tap_index == i)),
+            "used_hz": _used_span(r, i),
         }
     s = r.suggestion
     suggested = None if s is None else {
@@ -150,6 +173,10 @@ def tune_dict(r: TuneResult) -> dict:
         "taps": taps,
         "channels": [_channel(r, j) for j in range(r.frequencies_hz.size)],
         "gaps_hz": [[float(a), float(b)] for a, b in r.gaps_hz],
+        "tap_rule": r.chart.rule,
+        "range_margin": RANGE_MARGIN,
+        "switches": [{"from_tap": w.from_tap, "to_tap": w.to_tap, "last_hz": _opt(w.last_hz),
+                      "first_hz": w.first_hz, "reason": w.reason} for w in r.chart.switches],
         "uncovered_channels_hz": [float(f) for f in r.frequencies_hz[~ok]],
         "overlaps": [{"taps": list(o["taps"]),
                       "span_hz": None if o["span_hz"] is None else list(o["span_hz"]),
@@ -182,13 +209,13 @@ def _write_csv(r: TuneResult, path: Path) -> Path:
         w = csv.writer(fh)
         head = ["frequency_khz", "tap", "capacitance_pf", "capacitance_error_pf"]
         if plates:
-            head += ["position_mm"]
+            head += ["position_mm"] + (["position_in"] if r.imperial else [])
         head += ["q_loaded", "bandwidth_khz", "audio_cut", "audio_loss_db", "reliable", "edge",
                  "tuner_voltage_mv", "note"]
         w.writerow(head)
         for j, f in enumerate(r.frequencies_hz):
             if r.channel_tap_index[j] < 0:
-                row = [f"{f / 1e3:.1f}", "", "", ""] + ([""] if plates else [])
+                row = [f"{f / 1e3:.1f}", "", "", ""] + ([""] * (1 + r.imperial) if plates else [])
                 row += ["", "", "", "", "false", "", "", r.channel_reason[j]]
                 w.writerow(row)
                 continue
@@ -196,6 +223,8 @@ def _write_csv(r: TuneResult, path: Path) -> Path:
                    f"{r.capacitance_error_f[j] * 1e12:.2f}"]
             if plates:
                 row.append(f"{r.position_m[j] * 1e3:.2f}")
+                if r.imperial:
+                    row.append(f"{r.position_m[j] / 0.0254:.3f}")
             note = []
             if r.edge[j]:
                 note.append("near a tuner range end")
@@ -210,14 +239,18 @@ def _write_csv(r: TuneResult, path: Path) -> Path:
 
 
 def write_tune(result: TuneResult, out: Path) -> list[Path]:
-    """Write tuning.json, tuning.csv and tuning.png into ``out``."""
+    """Write tuning.json, tuning.csv, tuning.png (and for a plate tuner the 1:1 slide scale,
+    slide-scale.svg and .png) into ``out``."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     written = [write_json(out / "tuning.json", tune_dict(result)),
                _write_csv(result, out / "tuning.csv")]
-    from simloop.plots import plot_tuning
+    from simloop.plots import plot_slide_scale, plot_tuning
 
     written.append(plot_tuning(result, out / "tuning.png"))
+    if result.tuner.has_position and np.any(np.isfinite(result.position_m)):
+        written += [plot_slide_scale(result, out / "slide-scale.svg"),
+                    plot_slide_scale(result, out / "slide-scale.png")]
     return written
 
 
@@ -229,13 +262,34 @@ def _span(a: float, b: float) -> str:
     return f"{a / 1e3:.0f}–{b / 1e3:.0f} kHz"
 
 
+def chart_table(r: TuneResult) -> list[str]:
+    """Rows of the short chart (:func:`chart_selection`): kHz, tap, pF, slide, bandwidth."""
+    plates = r.tuner.has_position
+    unit = "in" if r.imperial else "mm"
+    head = "  kHz  tap      pF" + (f"  {unit:>6}" if plates else "") + "  BW kHz"
+    out = [head]
+    f = r.frequencies_hz
+    for j in chart_selection(r):
+        if r.channel_tap_index[j] < 0:
+            out.append(f"{f[j] / 1e3:5.0f}   --  gap")
+            continue
+        pos = ""
+        if plates:
+            x = r.position_m[j]
+            pos = f"  {x / 0.0254:6.3f}" if r.imperial else f"  {x * 1e3:6.1f}"
+        out.append(f"{f[j] / 1e3:5.0f}  {r.channel_tap[j]:3d} {r.capacitance_f[j] * 1e12:7.1f}{pos}"
+                   f"  {r.bandwidth_hz[j] / 1e3:6.2f}" + ("" if r.reliable[j] else " ?"))
+    out.append("? = model not trusted there")
+    return out
+
+
 def format_tune_summary(r: TuneResult) -> str:
     """A short human summary: coverage per tap, gaps, suggested taps, audio-cut channels."""
     lines = []
     f = r.frequencies_hz
     lines.append(f"{r.name}: {r.band.name} band, {f.size} channels {_span(f[0], f[-1])} every "
                  f"{r.band.spacing_hz / 1e3:g} kHz")
-    lines.append(f"tuner: {r.tuner.describe()}")
+    lines.append(f"tuner: {r.tuner.describe(r.imperial)}")
     for i, n in enumerate(r.tap_turns):
         used = int(np.sum(r.channel_tap_index == i))
         lo, hi = r.f_low_hz[i], r.f_high_hz[i]
@@ -243,7 +297,9 @@ def format_tune_summary(r: TuneResult) -> str:
             lines.append(f"  tap {n:>3}: cannot be tuned (not inductive in the model)")
             continue
         err = max((e for e in r.coverage_error[i] if np.isfinite(e)), default=math.nan)
-        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), chosen for {used} channels")
+        span = _used_span(r, i)
+        use = f"used for {_span(*span)} ({used} channels)" if span else "not used"
+        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), {use}")
     if r.gaps_hz.size:
         n_gap = int(np.sum(~r.covered))
         spans = ", ".join(_span(a, b) for a, b in r.gaps_hz)
@@ -291,19 +347,15 @@ def format_tune_summary(r: TuneResult) -> str:
     else:
         lines.append(f"model vs MoM: the {h.excluded_hz.size} held-back points lie below the MoM floor; "
                      "no comparison")
-    # A compact chart: about a dozen channels.
+    # The short chart: the same channels as the table in tuning.png.
     if np.any(ok):
-        plates = r.tuner.has_position
-        lines.append("chart:  kHz  tap      pF" + ("     mm" if plates else "") + "  BW kHz")
-        for j in np.unique(np.linspace(0, f.size - 1, min(f.size, 13)).round().astype(int)):
-            if not ok[j]:
-                lines.append(f"       {f[j] / 1e3:5.0f}   --  gap")
-                continue
-            pos = f" {r.position_m[j] * 1e3:6.1f}" if plates else ""
-            lines.append(f"       {f[j] / 1e3:5.0f}  {r.channel_tap[j]:3d} {r.capacitance_f[j] * 1e12:7.1f}"
-                         f"{pos}  {r.bandwidth_hz[j] / 1e3:5.1f}" + ("" if r.reliable[j] else "  (not trusted)"))
+        lines.append("chart (the same channels as in tuning.png; every channel in tuning.csv):")
+        lines.extend("  " + row for row in chart_table(r))
     for n in r.notes:
         lines.append(f"note: {n}")
+    if r.imperial and r.tuner.has_position:
+        lines.append("slide positions are in inches (the spec is written in inches); "
+                     "slide-scale.svg / slide-scale.png print the scale 1:1")
     for c in r.cautions:
         lines.append(f"CAUTION: {c}")
     return "\n".join(lines)

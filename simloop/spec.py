@@ -1,7 +1,7 @@
 """The spec file: TOML in, frozen dataclasses of SI floats out.
 
-``load(path)`` / ``loads(text)`` read a spec (DESIGN.md §3) in two stages, each of which collects
-every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
+``load(path)`` / ``loads(text)`` read a spec (README, "The spec file") in two stages, each of
+which collects every problem before raising one :class:`~simloop.errors.SpecError` with one line per problem,
 ``dotted.key: message``:
 
 1. **Structure** — TOML syntax (with line and column), unknown keys (with the near miss:
@@ -36,12 +36,17 @@ Keys and defaults (sections other than frame, winding, wire and taps are optiona
                OR permittivity [-] and conductivity [S/m]  (real only)
     [tuner]    kind = "range": min, max [capacitance], q (default 1000)
                kind = "plates": plate_width, plate_length, dielectric_thickness [length],
-                       permittivity [-], travel [length], gaps (default 2),
-                       stray [capacitance] (default "10 pF"), q (default 1000)
+                       travel [length], gaps (default 2), stray [capacitance] (default "10 pF"),
+                       dielectric = "air" | "ptfe" | "polypropylene" | "polyethylene" |
+                       "polystyrene" | "polyester" | "kraft-paper" | "card" | "glass",
+                       permittivity [-] (default: the dielectric's typical value; one of the
+                       two is required), q (default: from the dielectric, 1/tan δ, see
+                       simloop.tuner.plate_q)
     [receiver] rod_length, rod_diameter [length], permeability [-], coil_turns (int),
                coil_length [length], loaded_q [-], position = [x, y, z] [length],
                axis = [ax, ay, az] (default [0, 1, 0], normalised), coil_inductance [inductance]
-               (optional: the measured inductance of the rod coil)
+               (optional: the measured inductance of the rod coil), coil_offset [length]
+               (optional, default 0: the coil's centre from the rod's middle)
     [pattern]  frequency (default "1 MHz"), elevation = [angles] (default ["0 deg"]),
                polarization = "vertical" (default) | "horizontal"
 """
@@ -60,11 +65,14 @@ import numpy as np
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PlainValidator, ValidationError
 from pydantic_core import PydanticCustomError
 
+from simloop.constants import F_MAX_HZ as _F_MAX_HZ, F_MIN_HZ as _F_MIN_HZ  # docs/references.md §13
 from simloop.errors import SpecError
+from simloop.tuner import DIELECTRICS, dielectric_by_name, plate_q
 from simloop.units import (
     as_written,
     awg_diameter_m,
     format_quantity,
+    is_imperial,
     parse_gauge,
     parse_quantity,
 )
@@ -111,13 +119,12 @@ SOIL_CLASSES: Final[dict[str, tuple[float, float]]] = {
     "very-dry": (3.0, 1e-4),
 }
 
-# Limits of the model (our own choices, see DESIGN.md §5): the MoM solve and the fitted model are
-# built for MF; 10 kHz .. 30 MHz brackets every use of a medium-wave loop with a wide margin.
-_F_MIN_HZ: Final = 10e3
-_F_MAX_HZ: Final = 30e6
+# Limits of the model (our own choices, docs/references.md §13): _F_MIN_HZ/_F_MAX_HZ come from
+# simloop.constants (10 kHz .. 30 MHz brackets every use of a medium-wave loop with a wide margin).
 _MAX_POINTS: Final = 2001
 _MAX_TAPS: Final = 8
 _LEAD_OFFSET_DIAMETERS: Final = 4.0  # leads at least 4 wire diameters from the winding
+_LEAD_CLEARANCE_DIAMETERS: Final = 3.0  # leads keep 3 wire diameters from unjoined wire
 _GROUND_CLEARANCE_M: Final = 0.01  # the lowest lead must stay 1 cm above ground
 
 # Tuner defaults. Common practice for a home-built sliding-plate capacitor: one moving plate
@@ -239,6 +246,8 @@ class TunerSpec:
     permittivity: float | None = None
     travel_m: float | None = None
     stray_f: float | None = None
+    dielectric: str | None = None
+    q_source: str = "given in the spec (tuner.q)"
 
 
 @dataclass(frozen=True)
@@ -248,7 +257,8 @@ class ReceiverSpec:
     ``rod_length_m``, ``rod_diameter_m``, ``coil_length_m`` [m]; ``permeability`` initial
     permeability of the ferrite [-]; ``coil_turns`` [-]; ``loaded_q`` of the radio's tuned rod
     circuit [-]; ``position_m`` rod centre (x, y, z) [m]; ``axis`` unit vector along the rod [-];
-    ``coil_inductance_h`` measured rod-coil inductance [H], None when not given.
+    ``coil_inductance_h`` measured rod-coil inductance [H], None when not given;
+    ``coil_offset_m`` the coil's centre from the rod's middle [m].
     """
 
     rod_length_m: float
@@ -260,6 +270,7 @@ class ReceiverSpec:
     position_m: tuple[float, float, float]
     axis: tuple[float, float, float] = (0.0, 1.0, 0.0)
     coil_inductance_h: float | None = None
+    coil_offset_m: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -289,6 +300,16 @@ class Spec:
     receiver: ReceiverSpec | None
     pattern: PatternSpec | None
     path: Path | None
+    #: Free text from the spec's ``notes`` key, shown (escaped) in the study report.
+    notes: str = ""
+    #: The frame or winding was written in inches or feet: lengths are printed in inches and feet
+    #: as well as metres.
+    imperial: bool = False
+
+    @property
+    def length_system(self) -> Literal["metric", "imperial"]:
+        """The builder's unit system for reports: "imperial" when :attr:`imperial`."""
+        return "imperial" if self.imperial else "metric"
 
 
 # --- Stage 1: structure (pydantic models of what the user wrote) ---------------------------------
@@ -454,6 +475,7 @@ class _TunerIn(_Table):
     permittivity: _Positive | None = None
     travel: _Length | None = None
     stray: _Stray | None = None
+    dielectric: Annotated[str, _choice(*(d.key for d in DIELECTRICS))] | None = None
 
 
 class _ReceiverIn(_Table):
@@ -467,6 +489,7 @@ class _ReceiverIn(_Table):
     axis: Annotated[list[_Component], Field(min_length=3, max_length=3)] = [
         _W(0.0, "0"), _W(1.0, "1"), _W(0.0, "0")]
     coil_inductance: _Inductance | None = None
+    coil_offset: _Coordinate | None = None
 
 
 class _PatternIn(_Table):
@@ -477,6 +500,7 @@ class _PatternIn(_Table):
 
 class _SpecIn(_Table):
     name: _Str | None = None
+    notes: _Str | None = None
     frame: _FrameIn
     winding: _WindingIn
     wire: _WireIn
@@ -661,8 +685,8 @@ def _resolve_ground(g: _GroundIn | None, problems: list[tuple[str, str]]) -> Gro
 _TUNER_KEYS: Final[dict[str, tuple[set[str], set[str]]]] = {
     # kind: (required keys, optional keys)
     "range": ({"min", "max"}, {"q"}),
-    "plates": ({"plate_width", "plate_length", "dielectric_thickness", "permittivity", "travel"},
-               {"gaps", "stray", "q"}),
+    "plates": ({"plate_width", "plate_length", "dielectric_thickness", "travel"},
+               {"gaps", "stray", "q", "permittivity", "dielectric"}),
 }
 
 
@@ -683,16 +707,26 @@ def _resolve_tuner(t: _TunerIn | None, problems: list[tuple[str, str]]) -> Tuner
     if len(problems) > n_before:
         return None
     q = t.q.value if t.q is not None else _TUNER_Q
+    q_source = "given in the spec (tuner.q)" if t.q is not None else "assumed for an air-variable"
     if t.kind == "range":
         assert t.min is not None and t.max is not None
-        return TunerSpec(kind="range", min_f=t.min.value, max_f=t.max.value, q=q)
-    assert t.plate_width and t.plate_length and t.dielectric_thickness and t.permittivity
+        return TunerSpec(kind="range", min_f=t.min.value, max_f=t.max.value, q=q, q_source=q_source)
+    if t.permittivity is None and t.dielectric is None:
+        problems.append(("tuner.permittivity", 'missing: tuner.kind = "plates" needs it, or name '
+                                               'tuner.dielectric (e.g. "polypropylene")'))
+        return None
+    assert t.plate_width and t.plate_length and t.dielectric_thickness
     assert t.travel is not None
+    permittivity = (t.permittivity.value if t.permittivity is not None
+                    else dielectric_by_name(t.dielectric).typical_permittivity)
+    if t.q is None:  # the plate capacitor's Q comes from its dielectric (simloop.tuner.plate_q)
+        q, q_source = plate_q(permittivity, t.dielectric)
     return TunerSpec(
-        kind="plates", q=q, plate_width_m=t.plate_width.value,
+        kind="plates", q=q, q_source=q_source, dielectric=t.dielectric,
+        plate_width_m=t.plate_width.value,
         plate_length_m=t.plate_length.value,
         gaps=t.gaps if t.gaps is not None else _TUNER_GAPS,
-        dielectric_thickness_m=t.dielectric_thickness.value, permittivity=t.permittivity.value,
+        dielectric_thickness_m=t.dielectric_thickness.value, permittivity=permittivity,
         travel_m=t.travel.value, stray_f=t.stray.value if t.stray is not None else _TUNER_STRAY_F)
 
 
@@ -730,6 +764,16 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     if not win.pitch.value > d:
         p.append(("winding.pitch", f"{win.pitch.text} must exceed {wire_text}; the turns would "
                                    f"touch"))
+    elif win.pitch.value < _LEAD_CLEARANCE_DIAMETERS * d:
+        # Every tap lead leaves the winding between two turns and passes the neighbouring turn at
+        # one pitch; a lead must keep three wire diameters from any wire it is not joined to
+        # (simloop.geometry.check_clearances), so the pitch must be at least that.
+        p.append(("winding.pitch", f"{win.pitch.text} is less than {_LEAD_CLEARANCE_DIAMETERS:g} × "
+                                   f"{wire_text} = {_mm(_LEAD_CLEARANCE_DIAMETERS * d)}: the tap leads "
+                                   f"leave the winding between neighbouring turns, one pitch from "
+                                   f"them, and a lead must keep {_LEAD_CLEARANCE_DIAMETERS:g} wire "
+                                   f"diameters from wire it is not joined to; wind at a pitch of at "
+                                   f"least {_mm(_LEAD_CLEARANCE_DIAMETERS * d)} or use thinner wire"))
     if win.style == "spiral" and win.turns >= 1:
         pitch = win.pitch.value
         for side, dim in (("width", m.frame.width), ("height", m.frame.height)):
@@ -824,6 +868,10 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
                                                f"{r.permeability.text}"))
         if r.coil_turns < 1:
             p.append(("receiver.coil_turns", f"must be at least 1, got {r.coil_turns}"))
+        off = r.coil_offset
+        if off is not None and not abs(off.value) + r.coil_length.value / 2 <= r.rod_length.value / 2:
+            p.append(("receiver.coil_offset", f"{off.text} puts the coil (length {r.coil_length.text}) "
+                                              f"past the end of the rod (length {r.rod_length.text})"))
         if all(c.value == 0 for c in r.axis):
             p.append(("receiver.axis", f"[{', '.join(c.text for c in r.axis)}] has no direction; "
                                        f"give a non-zero vector such as [0, 1, 0]"))
@@ -843,6 +891,60 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     return p
 
 
+# --- Stage 3: size (estimated from the numbers, before any geometry is built) ------------------
+
+def _bare(w: _W) -> bool:
+    """True when the user wrote a bare number (read as the SI unit) rather than a quantity string."""
+    return not w.text.startswith(('"', "'", "the default"))
+
+
+def _size_problems(m: _SpecIn, wire: WireSpec) -> list[tuple[str, str]]:
+    """Refuse a spec whose mesh would exceed :data:`simloop.mesh.MAX_SEGMENTS`, naming the keys
+    that drive the count, with a units hint for lengths written as bare numbers (metres)."""
+    from simloop.mesh import MAX_SEGMENTS, solve_cost, estimate_segments
+
+    fr, wd, ms = m.frame, m.winding, m.mesh
+    smallest = 6 * 2 * wire.radius_m  # a side must hold segments of at least two wire radii
+    for key, w in (("frame.width", fr.width), ("frame.height", fr.height)):
+        if not w.value >= smallest:
+            return [(key, f"{w.text} is too small to mesh: a side must be at least six wire diameters "
+                          f"({smallest * 1e3:.3g} mm) long{_units_hint(key, w)}")]
+    seg = ms.segment_length
+    n, limit = estimate_segments(fr.width.value, fr.height.value, wd.turns, wd.pitch.value, wd.style,
+                                 ms.quality, m.sweep.stop.value, seg.value if seg is not None else None)
+    if n <= MAX_SEGMENTS:
+        return []
+    drivers = [("frame.width", fr.width), ("frame.height", fr.height)]
+    by = {"segment_length": [("mesh.segment_length", seg)],
+          "turn": [("mesh.quality", _W(0, f'"{ms.quality}"'))],
+          "pitch": [("winding.pitch", wd.pitch), ("mesh.quality", _W(0, f'"{ms.quality}"'))],
+          "wavelength": [("sweep.stop", m.sweep.stop)]}[limit]
+    turns = str(wd.turns) if len(str(wd.turns)) <= 12 else f"a {len(str(wd.turns))}-digit number"
+    drivers = [("winding.turns", _W(0, turns))] + drivers + by
+    if math.isfinite(n) and n < 1e12:
+        seconds, memory_b = solve_cost(n)
+        size = (f"at least {n:,.0f} segments, more than the {MAX_SEGMENTS} this tool solves (about "
+                f"{memory_b / 1e9:.3g} GB and {seconds / 3600:.3g} h per frequency)")
+    else:
+        size = f"more segments than any computer can solve (this tool solves at most {MAX_SEGMENTS})"
+    message = (f"the mesh would have {size}; the size comes from {', '.join(f'{k} = {w.text}' for k, w in drivers)}: fewer turns, a "
+               f"smaller frame or a coarser mesh make it smaller")
+    bare = [(k, w) for k, w in drivers if k not in ("winding.turns", "mesh.quality") and _bare(w)]
+    message += "".join(_units_hint(k, w) for k, w in bare)
+    key = bare[0][0] if bare else "winding.turns"
+    return [(key, message)]
+
+
+def _units_hint(key: str, w: _W) -> str:
+    if not _bare(w):
+        return ""
+    unit = "Hz" if key == "sweep.stop" else "m"
+    return (f". Note: {key} = {w.text} is a bare number, read in the SI unit as {w.text} {unit}; "
+            f"write the unit if you meant another (\"{w.text} cm\", \"{w.text} in\", \"{w.text} mm\")"
+            if unit == "m" else
+            f". Note: {key} = {w.text} is a bare number, read as {w.text} Hz; write \"{w.text} kHz\" if meant")
+
+
 # --- Building the result -------------------------------------------------------------------------
 
 def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: TunerSpec | None,
@@ -851,14 +953,16 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
     if m.receiver is not None:
         r = m.receiver
         ax = np.array([c.value for c in r.axis])
-        ax = ax / np.linalg.norm(ax)
+        ax = ax / np.max(np.abs(ax))  # scaled first: the norm of [1e-320, 0, 0] or [1e308, 1e308, 0]
+        ax = ax / np.linalg.norm(ax)  # under- or overflows, and a NaN axis would pass every check
         receiver = ReceiverSpec(
             rod_length_m=r.rod_length.value, rod_diameter_m=r.rod_diameter.value,
             permeability=r.permeability.value, coil_turns=r.coil_turns,
             coil_length_m=r.coil_length.value, loaded_q=r.loaded_q.value,
             position_m=(r.position[0].value, r.position[1].value, r.position[2].value),
             axis=(float(ax[0]), float(ax[1]), float(ax[2])),
-            coil_inductance_h=r.coil_inductance.value if r.coil_inductance else None)
+            coil_inductance_h=r.coil_inductance.value if r.coil_inductance else None,
+            coil_offset_m=r.coil_offset.value if r.coil_offset else 0.0)
     pattern = None
     if m.pattern is not None:
         pattern = PatternSpec(frequency_hz=m.pattern.frequency.value,
@@ -882,6 +986,8 @@ def _build(m: _SpecIn, name: str, wire: WireSpec, ground: GroundSpec, tuner: Tun
         receiver=receiver,
         pattern=pattern,
         path=path,
+        notes=m.notes or "",
+        imperial=any(is_imperial(v.text) for v in (m.frame.width, m.frame.height, m.winding.pitch)),
     )
 
 
@@ -904,6 +1010,9 @@ def _parse(text: str, source: str, path: Path | None) -> Spec:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise _toml_error(err, text, source) from None
+    except RecursionError:
+        raise SpecError(source, "TOML nested too deeply (arrays or tables inside each other "
+                                "thousands of levels deep); a spec needs at most three levels") from None
 
     # Stage 1: structure.
     try:
@@ -928,6 +1037,9 @@ def _parse(text: str, source: str, path: Path | None) -> Spec:
     assert wire_and_text is not None and ground is not None
     wire, wire_text = wire_and_text
     problems = ([name_problem] if name_problem else []) + _physics(model, wire, wire_text)
+    if problems:
+        raise SpecError(problems[0][0], problems[0][1], problems)
+    problems = _size_problems(model, wire)  # before anything is built: see simloop.mesh.MAX_SEGMENTS
     if problems:
         raise SpecError(problems[0][0], problems[0][1], problems)
     assert name is not None

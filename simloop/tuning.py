@@ -41,11 +41,14 @@ plane) is V = Q_L h_e E with h_e = 2π Σ A_k / λ over the tap's active turns
 
 Choosing the tap for a channel
 ------------------------------
-Of the taps that reach a channel, the tool takes, in this order: one whose capacitance is inside
-the tuner's range by more than its own uncertainty and whose model point is trusted; then one
-inside the range by its uncertainty; then one trusted; then any. Among equals it takes the tap
-that gives the highest signal voltage at the tuner (Q_L · h_e), which in practice is the tap with
-the most turns that still tunes the channel.
+A builder switches taps as rarely as possible and uses the most turns for the lowest frequencies,
+working up (common practice). The chart therefore gives every tap one contiguous span of channels
+(:func:`assign_taps`): starting at the bottom of the band on the tap with the most turns, it stays
+on a tap while its setting lies inside the tuner's range by :data:`RANGE_MARGIN` (5 % of the
+capacitance) plus the model's uncertainty of the setting (:func:`tuner_margins`), and moves to the
+tap with the next fewer turns that tunes the channel inside that margin; it never goes back. More
+turns also give the larger signal (h_e grows with the turns at a similar Q). Each switch point
+says why it lies where it does (:class:`TapSwitch`).
 
 Tap suggestions
 ---------------
@@ -60,13 +63,13 @@ nearly the same for all taps). It is an estimate: confirm it with a sweep of the
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import F_MAX_HZ, F_MIN_HZ  # the spec's limits [Hz], docs/references.md §13
 from simloop.errors import SpecError
 from simloop.geometry import WINDING, build_loop
 from simloop.impedance import RELIABLE_BELOW, SweepResult
@@ -74,15 +77,21 @@ from simloop.tuner import (
     PlateTuner,
     Tuner,
     air_layer_factor,
-    dielectrics_near,
     fringing_excess_palmer1937,
     tuner_from_spec,
 )
-from simloop.units import format_quantity
+from simloop.units import format_length, format_quantity
 
 __all__ = [
     "BAND_PLANS",
+    "RANGE_MARGIN",
+    "TAP_RULE",
     "BandPlan",
+    "ChannelChart",
+    "Coverage",
+    "TapSwitch",
+    "assign_taps",
+    "tuner_margins",
     "HeldBackError",
     "TapSuggestion",
     "TuneResult",
@@ -96,9 +105,6 @@ __all__ = [
     "tuning_capacitance",
 ]
 
-#: Lowest and highest frequency the tool models (the spec's limits). [Hz]
-F_MIN_HZ = 10e3
-F_MAX_HZ = 30e6
 #: Points of the log grid on which resonances are bracketed before root finding.
 SCAN_POINTS = 3000
 #: Overlap margin of suggested taps, as a fraction of frequency (at least; raised to the worst
@@ -145,9 +151,10 @@ def _raster(start_hz: float, stop_hz: float, step_hz: float) -> np.ndarray:
 
 
 _ITU_13 = ("ITU Radio Regulations art. 5, Regions 1 and 3: broadcasting 526.5–1606.5 kHz, carriers "
-           "every 9 kHz from 531 to 1602 kHz (REFERENCES.md §7, [src secondary])")
+           "every 9 kHz from 531 to 1602 kHz")
 _ITU_2 = ("ITU Radio Regulations art. 5, Region 2: broadcasting 525–1705 kHz, carriers every 10 kHz "
-          "from 530 to 1700 kHz (REFERENCES.md §7: spacing [src secondary], range [mem])")
+          "from 530 to 1700 kHz (the 1605–1705 kHz extension per the Rio de Janeiro agreement, 1988; "
+          "approximate: the range is quoted from secondary sources)")
 
 #: The named band plans (``itu-3`` is the same raster as ``itu-1``).
 BAND_PLANS = {
@@ -156,54 +163,40 @@ BAND_PLANS = {
     "itu-3": (531e3, 1602e3, 9e3, _ITU_13),
 }
 
-_BAND_RULE = ("use itu-1, itu-2, itu-3 or START:STOP:STEP with frequencies such as 530k, 1.7M, "
-              "530kHz or 530000 (bare numbers are Hz), e.g. 530k:1700k:10k")
-_SHORT_UNIT = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)\s*([kKM]?)\s*$")
 
-
-def _band_frequency(text: str, band: str) -> float:
-    from simloop.units import parse_quantity
-
-    m = _SHORT_UNIT.match(text)
-    if m:
-        return float(m.group(1)) * {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6}[m.group(2)]
-    try:
-        return parse_quantity(text.strip(), "frequency", "--band")
-    except SpecError:
-        raise SpecError("--band", f'"{band}": "{text}" is not a frequency; {_BAND_RULE}') from None
-
-
-def band_plan(band: str) -> BandPlan:
-    """The band plan named by ``band`` (``itu-1``, ``itu-2``, ``itu-3`` or ``START:STOP:STEP``).
+def band_plan(band) -> BandPlan:
+    """The band plan named by ``band`` (``itu-1``, ``itu-2``, ``itu-3``) or a raster
+    ``(start_hz, stop_hz, step_hz)`` (parse a ``START:STOP:STEP`` option with
+    :func:`simloop.units.parse_band_raster`).
 
     Raises
     ------
     SpecError
         Key ``"--band"``, naming the value and the rule.
     """
-    text = str(band).strip()
-    key = text.lower()
-    if key in BAND_PLANS:
+    if isinstance(band, BandPlan):
+        return band
+    if isinstance(band, str):
+        key = band.strip().lower()
+        if key not in BAND_PLANS:
+            raise SpecError("--band", f'"{band}" is not a named band plan; use itu-1, itu-2, itu-3 '
+                                      "or a raster START:STOP:STEP such as 530k:1700k:10k")
         start, stop, step, desc = BAND_PLANS[key]
         return BandPlan(key, _raster(start, stop, step), step, step / 2, desc)
-    parts = text.split(":")
-    if len(parts) != 3:
-        raise SpecError("--band", f'"{band}" is not a band plan; {_BAND_RULE}')
-    start, stop, step = (_band_frequency(p, text) for p in parts)
+    start, stop, step = (float(v) for v in band)
+    shown = f"{start:g}:{stop:g}:{step:g} Hz"
     if not (step > 0 and start > 0):
-        raise SpecError("--band", f'"{band}": START and STEP must be > 0; {_BAND_RULE}')
+        raise SpecError("--band", f"{shown}: START and STEP must be > 0")
     if stop < start:
-        raise SpecError("--band", f'"{band}": STOP must not be below START; {_BAND_RULE}')
+        raise SpecError("--band", f"{shown}: STOP must not be below START")
     if start < F_MIN_HZ or stop > F_MAX_HZ:
-        raise SpecError("--band", f'"{band}": channels must lie within {F_MIN_HZ / 1e3:.0f} kHz–'
-                                  f'{F_MAX_HZ / 1e6:.0f} MHz, the range the tool models '
-                                  f'(bare numbers are Hz: did you mean {parts[0]}k:{parts[1]}k:{parts[2]}k?)'
-                        if max(start, stop) < F_MIN_HZ else
-                        f'"{band}": channels must lie within {F_MIN_HZ / 1e3:.0f} kHz–{F_MAX_HZ / 1e6:.0f} MHz, '
-                        f'the range the tool models')
+        hint = (" (bare numbers are Hz: did you mean kHz, e.g. 530k:1700k:10k?)"
+                if max(start, stop) < F_MIN_HZ else "")
+        raise SpecError("--band", f"{shown}: channels must lie within {F_MIN_HZ / 1e3:.0f} kHz–"
+                                  f"{F_MAX_HZ / 1e6:.0f} MHz, the range the tool models{hint}")
     freqs = _raster(start, stop, step)
     if freqs.size > 2001:
-        raise SpecError("--band", f'"{band}" gives {freqs.size} channels; at most 2001 (raise STEP)')
+        raise SpecError("--band", f"{shown} gives {freqs.size} channels; at most 2001 (raise STEP)")
     return BandPlan("custom", freqs, step, step / 2,
                     f"custom raster {start / 1e3:g}–{freqs[-1] / 1e3:g} kHz every {step / 1e3:g} kHz")
 
@@ -550,39 +543,88 @@ def suggest_taps(spec, sweep: SweepResult, tuner: Tuner, f_bottom_hz: float, f_t
 # The result
 # --------------------------------------------------------------------------------------------
 
-@dataclass(frozen=True)
-class TuneResult:
-    """Coverage, channel chart, bandwidth and tuner voltage of a tapped loop and its tuner.
+#: Margin a setting keeps from the tuner's range ends before the chart moves to the next tap, as a
+#: fraction of the capacitance, on top of the model's uncertainty of the setting (our choice, not
+#: a published figure: room for the real loop and capacitor to differ from the model by a few per
+#: cent; 5 % of the capacitance is about 2.5 % of frequency).
+RANGE_MARGIN = 0.05
 
-    Per-tap arrays have shape (k,), per-channel arrays shape (m,), per-channel-and-tap arrays
-    shape (m, k). A channel no tap reaches has ``channel_tap_index`` −1 and NaN in its numbers.
+#: How the chart assigns taps (said in every result).
+TAP_RULE = (
+    "each tap is used over one span of channels: from the bottom of the band the chart uses the "
+    "most turns (common practice: the most turns for the lowest frequencies, working up) and stays "
+    f"on a tap while its setting lies inside the tuner's range by at least {RANGE_MARGIN:.0%} of the "
+    "capacitance plus the model's uncertainty of it; there it moves to the tap with the next fewer "
+    "turns that tunes the channel inside that margin. A tap is kept into its margin only where no tap "
+    "with fewer turns tunes the channel inside it")
+
+
+@dataclass(frozen=True)
+class Coverage:
+    """What each tap reaches with the tuner's range, and what no tap reaches.
 
     Attributes
     ----------
-    tap_turns : tuple of int
     f_low_hz, f_high_hz : ndarray, (k,)
-        Coverage of each tap with the tuner's range (resonance at C_max and C_min). [Hz]
-    coverage_error : ndarray, (k,)
-        Relative frequency uncertainty of f_low (index 0) and f_high (index 1), (k, 2). [-]
-    self_resonance_hz, self_capacitance_f, inductance_h : ndarray, (k,)
-        From the sweep's model. [Hz], [F], [H]
+        Coverage of each tap (resonance at C_max and at C_min). [Hz]
+    coverage_error : ndarray, (k, 2)
+        Relative frequency uncertainty of f_low and f_high. [-]
+    gaps_hz : ndarray, (g, 2)
+        Spans of the band no tap covers. [Hz]
+    overlaps : tuple of dict
+        Adjacent taps' common coverage: ``taps``, ``span_hz`` (or None) and ``margin``.
+    suggestion : TapSuggestion or None
+        Taps that would close the gaps (only when there are gaps).
+    """
+
+    f_low_hz: np.ndarray
+    f_high_hz: np.ndarray
+    coverage_error: np.ndarray
+    gaps_hz: np.ndarray
+    overlaps: tuple[dict, ...]
+    suggestion: TapSuggestion | None
+
+
+@dataclass(frozen=True)
+class TapSwitch:
+    """A switch point of the chart: ``from_tap`` is used up to ``last_hz``, ``to_tap`` from
+    ``first_hz`` on (taps in turns, frequencies in Hz), and why the switch lies there."""
+
+    from_tap: int
+    to_tap: int
+    last_hz: float
+    first_hz: float
+    reason: str
+
+
+@dataclass(frozen=True)
+class ChannelChart:
+    """The channel chart: per-channel arrays (m,), per-channel-and-tap arrays (m, k).
+
+    A channel no tap reaches has ``channel_tap_index`` −1 and NaN in its numbers.
+
+    Attributes
+    ----------
     frequencies_hz : ndarray, (m,)
         Channel carriers. [Hz]
     capacitance_all_f : ndarray, (m, k)
         Tuning capacitance of every tap at every channel (negative above self-resonance). [F]
-    reachable : ndarray of bool, (m, k)
-        The tuner's range contains that capacitance.
+    reachable, comfortable : ndarray of bool, (m, k)
+        The tuner's range contains that capacitance; it does so with :data:`RANGE_MARGIN` plus
+        the model's uncertainty to spare.
+    q_loaded_all : ndarray, (m, k)
+        Loaded Q of every tap where it is reachable. [-]
     channel_tap_index : ndarray of int, (m,)
     channel_reason : tuple of str, (m,)
-        Why no tap reaches the channel ("" where one does).
+        Why no tap is used for the channel ("" where one is).
     capacitance_f, capacitance_error_f, position_m : ndarray, (m,)
-        Setting of the chosen tap, its uncertainty from the model's error [F], and the slide
+        Setting of the chosen tap [F], its uncertainty from the model's error [F], and the slide
         position (plate tuner; NaN otherwise) [m].
     capacitance_step_f, position_step_m : ndarray, (m,)
         Change of the setting from one channel to the next. [F], [m]
     q_loop, q_loaded, q_loaded_no_proximity : ndarray, (m,)
-        Loop Q in the tuned circuit, loaded Q with the capacitor's loss, and the loaded Q
-        without the proximity-effect correction. [-]
+        Loop Q in the tuned circuit, loaded Q with the capacitor's loss, and the loaded Q without
+        the proximity-effect correction. [-]
     bandwidth_hz, bandwidth_no_proximity_hz : ndarray, (m,)
         −3 dB bandwidth f/Q_L. [Hz]
     audio_cut : ndarray of bool, (m,)
@@ -595,31 +637,18 @@ class TuneResult:
         Model trusted at the channel; setting within its uncertainty of a range end; channel
         beyond the sweep's frequencies.
     effective_height_m, voltage_v, current_a : ndarray, (m,)
-        h_e of the chosen tap [m], tuner voltage and capacitor current at ``field_v_per_m``
-        [V], [A] (rms for an rms field).
-    curve_frequencies_hz : ndarray, (p,), curve_capacitance_f : ndarray, (p, k)
-        Dense C_t(f) per tap for plots (NaN above each tap's self-resonance). [Hz], [F]
-    gaps_hz : ndarray, (g, 2)
-        Spans of the band no tap covers. [Hz]
-    overlaps : tuple of dict
-        Adjacent taps' common coverage: ``taps``, ``span_hz`` (or None) and ``margin``.
+        h_e of the chosen tap [m], tuner voltage and capacitor current at the field [V], [A].
+    switches : tuple of TapSwitch
+        The switch points, from the bottom of the band up.
+    rule : str
+        How taps were assigned (:data:`TAP_RULE`).
     """
 
-    name: str
-    band: BandPlan
-    tuner: Tuner
-    field_v_per_m: float
-    tap_turns: tuple[int, ...]
-    f_low_hz: np.ndarray
-    f_high_hz: np.ndarray
-    coverage_error: np.ndarray
-    self_resonance_hz: np.ndarray
-    self_capacitance_f: np.ndarray
-    inductance_h: np.ndarray
-    inductance_error: np.ndarray
     frequencies_hz: np.ndarray
     capacitance_all_f: np.ndarray
     reachable: np.ndarray
+    comfortable: np.ndarray
+    q_loaded_all: np.ndarray
     channel_tap_index: np.ndarray
     channel_reason: tuple[str, ...]
     capacitance_f: np.ndarray
@@ -641,31 +670,176 @@ class TuneResult:
     effective_height_m: np.ndarray
     voltage_v: np.ndarray
     current_a: np.ndarray
+    switches: tuple[TapSwitch, ...]
+    rule: str = TAP_RULE
+
+
+@dataclass(frozen=True)
+class TuneResult:
+    """Coverage, channel chart, bandwidth and tuner voltage of a tapped loop and its tuner.
+
+    Grouped as ``coverage`` (:class:`Coverage`), ``chart`` (:class:`ChannelChart`) and ``notes``;
+    the fields of ``coverage`` and ``chart`` are also readable directly on the result
+    (``result.gaps_hz`` is ``result.coverage.gaps_hz``).
+
+    Attributes
+    ----------
+    tap_turns : tuple of int
+    self_resonance_hz, self_capacitance_f, inductance_h, inductance_error : ndarray, (k,)
+        From the sweep's model. [Hz], [F], [H], [-]
+    curve_frequencies_hz : ndarray, (p,), curve_capacitance_f : ndarray, (p, k)
+        Dense C_t(f) per tap for plots (NaN above each tap's self-resonance). [Hz], [F]
+    model_error : HeldBackError or None
+    fit_hz : ndarray
+        The model's fit frequencies. [Hz]
+    sweep_range_hz : (float, float)
+    imperial : bool
+        The spec was written in inches: lengths are shown in inches and feet too.
+    """
+
+    name: str
+    band: BandPlan
+    tuner: Tuner
+    field_v_per_m: float
+    tap_turns: tuple[int, ...]
+    self_resonance_hz: np.ndarray
+    self_capacitance_f: np.ndarray
+    inductance_h: np.ndarray
+    inductance_error: np.ndarray
+    coverage: Coverage
+    chart: ChannelChart
     curve_frequencies_hz: np.ndarray
     curve_capacitance_f: np.ndarray
-    gaps_hz: np.ndarray
-    overlaps: tuple[dict, ...]
-    suggestion: TapSuggestion | None
     model_error: HeldBackError | None
     fit_hz: np.ndarray
     sweep_range_hz: tuple[float, float]
     cautions: tuple[str, ...]
     notes: tuple[str, ...] = field(default=())
+    imperial: bool = False
+
+    def __getattr__(self, name: str):
+        if name.startswith("__") or name in ("coverage", "chart"):
+            raise AttributeError(name)
+        for group in (object.__getattribute__(self, "chart"), object.__getattribute__(self, "coverage")):
+            if hasattr(group, name):
+                return getattr(group, name)
+        raise AttributeError(f"{type(self).__name__!r} has no attribute {name!r}")
 
     @property
     def channel_tap(self) -> np.ndarray:
         """Tap (in turns) chosen for each channel, 0 where none reaches it. (m,)"""
         turns = np.array(self.tap_turns)
-        return np.where(self.channel_tap_index >= 0, turns[np.maximum(self.channel_tap_index, 0)], 0)
+        idx = self.chart.channel_tap_index
+        return np.where(idx >= 0, turns[np.maximum(idx, 0)], 0)
 
     @property
     def covered(self) -> np.ndarray:
-        """Channels some tap reaches. (m,) bool"""
-        return self.channel_tap_index >= 0
+        """Channels the chart tunes. (m,) bool"""
+        return self.chart.channel_tap_index >= 0
 
 
 # --------------------------------------------------------------------------------------------
-# run_tune
+# Assigning taps to channels (pure: arrays in, arrays out)
+# --------------------------------------------------------------------------------------------
+
+def tuner_margins(capacitance_f, capacitance_error_f, tuner: Tuner, margin: float = RANGE_MARGIN):
+    """Which settings the tuner reaches, within its uncertainty, and with the margin to spare.
+
+    Parameters
+    ----------
+    capacitance_f, capacitance_error_f : array_like
+        Setting and its uncertainty. [F]
+    tuner : Tuner
+    margin : float
+        Relative capacitance margin from the range ends. [-]
+
+    Returns
+    -------
+    (reachable, inside_uncertainty, comfortable) : ndarrays of bool
+        C_min ≤ C ≤ C_max; the same by the uncertainty δC; and
+        C_min·(1 + margin) ≤ C − δC, C + δC ≤ C_max/(1 + margin).
+    """
+    c = np.asarray(capacitance_f, dtype=float)
+    dc = np.abs(np.asarray(capacitance_error_f, dtype=float))
+    with np.errstate(invalid="ignore"):
+        reach = (c > 0) & (c >= tuner.min_f) & (c <= tuner.max_f)
+        inside = reach & (c - dc >= tuner.min_f) & (c + dc <= tuner.max_f)
+        comfy = reach & (c - dc >= tuner.min_f * (1 + margin)) & (c + dc <= tuner.max_f / (1 + margin))
+    return reach, inside, comfy
+
+
+def assign_taps(tap_turns, reachable, comfortable):
+    """Assign each channel (rows, rising frequency) a tap: one contiguous span per tap.
+
+    The rule is :data:`TAP_RULE`: taps are taken in order of falling turns, never back; the
+    chart stays on a tap while it is ``comfortable``, moves to the tap with the most turns among
+    those left that is, and keeps a merely ``reachable`` tap only where no tap left is
+    comfortable.
+
+    Parameters
+    ----------
+    tap_turns : sequence of int, (k,)
+    reachable, comfortable : ndarray of bool, (m, k)
+
+    Returns
+    -------
+    choice : ndarray of int, (m,)
+        Tap index per channel, −1 where no tap left in the order reaches it.
+    switches : list of (int, int, int)
+        (channel index of the first channel on the new tap, old tap index, new tap index).
+    """
+    reachable = np.asarray(reachable, dtype=bool)
+    comfortable = np.asarray(comfortable, dtype=bool) & reachable
+    order = sorted(range(len(tap_turns)), key=lambda i: -tap_turns[i])
+    m = reachable.shape[0]
+    choice = np.full(m, -1, dtype=int)
+    switches: list[tuple[int, int, int]] = []
+    at = None  # position in `order` of the tap in use
+    for j in range(m):
+        left = order if at is None else order[at:]
+        if at is not None and comfortable[j, order[at]]:
+            pick = order[at]
+        else:
+            pick = next((i for i in left if comfortable[j, i]), None)
+            if pick is None and at is not None and reachable[j, order[at]]:
+                pick = order[at]
+            if pick is None:
+                pick = next((i for i in left if reachable[j, i]), None)
+        if pick is None:
+            continue
+        pos = order.index(pick)
+        if at is not None and pos != at:
+            switches.append((j, order[at], pick))
+        at = pos
+        choice[j] = pick
+    return choice, switches
+
+
+def _switch_reason(j: int, a: int, b: int, f, turns, c_all, reach, skipped, tuner: Tuner,
+                   f_high_a: float) -> str:
+    """Why the chart moves from tap index a to b at channel j (say it in the builder's terms)."""
+    fa = f"{f[j] / 1e3:.0f} kHz"
+    if reach[j, a]:
+        end = "minimum" if c_all[j, a] < np.sqrt(tuner.min_f * tuner.max_f) else "maximum"
+        lim = tuner.min_f if end == "minimum" else tuner.max_f
+        why = (f"at {fa} tap {turns[a]} would need {_pf(c_all[j, a])}, within {RANGE_MARGIN:.0%} "
+               f"(plus the model's uncertainty) of the tuner's {end} {_pf(lim)}")
+    elif c_all[j, a] > 0:
+        side = "below the tuner's minimum" if c_all[j, a] < tuner.min_f else "above the tuner's maximum"
+        why = f"at {fa} tap {turns[a]} would need {_pf(c_all[j, a])}, {side}"
+    else:
+        why = f"at {fa} tap {turns[a]} is above its self-resonance"
+    if np.isfinite(f_high_a):
+        why += f" (tap {turns[a]} reaches up to {f_high_a / 1e3:.0f} kHz at the tuner's minimum)"
+    why += f"; tap {turns[b]} tunes it with {_pf(c_all[j, b])}"
+    if skipped:
+        why += (f" (tap{'s' if len(skipped) > 1 else ''} {', '.join(str(turns[s]) for s in skipped)} "
+                "skipped: not inside the margin there)")
+    return why
+
+
+# --------------------------------------------------------------------------------------------
+# run_tune and its stages
 # --------------------------------------------------------------------------------------------
 
 def _tap_z(sweep: SweepResult, i: int, proximity: bool = True):
@@ -718,64 +892,38 @@ def _reason(c_row: np.ndarray, below: np.ndarray, tuner: Tuner, turns) -> str:
             return (f"needs {_pf(c_row[i])} on tap {turns[i]}, below the tuner's minimum "
                     f"{_pf(tuner.min_f)}")
         return "above every tap's self-resonance: no capacitor tunes it"
+    reach = usable & (c_row >= tuner.min_f) & (c_row <= tuner.max_f)
+    if np.any(reach):
+        names = ", ".join(str(turns[i]) for i in np.flatnonzero(reach))
+        return (f"only tap {names} reaches it, which the chart has already left for fewer turns "
+                "(each tap keeps one span)")
     return "between the taps' ranges: one needs more than the tuner's maximum, another less than its minimum"
 
 
-def run_tune(spec, sweep: SweepResult, band: str = "itu-1", field_v_per_m: float = 1e-3) -> TuneResult:
-    """Coverage per tap, the channel chart, bandwidth and tuner voltage of a loop spec.
+@dataclass(frozen=True)
+class _TapGrid:
+    """Every tap at every channel (internal stage result, shapes (m, k))."""
 
-    Parameters
-    ----------
-    spec : simloop.spec.Spec
-        Its ``tuner`` (None: :data:`simloop.tuner.DEFAULT_TUNER`, and the result says so) and its
-        winding (for tap suggestions).
-    sweep : SweepResult
-        The impedance sweep of the same spec; its fitted model gives every frequency.
-    band : str
-        ``itu-1``, ``itu-2``, ``itu-3`` or ``START:STOP:STEP``.
-    field_v_per_m : float
-        Incident field strength for the tuner voltage. [V/m]
+    c_all: np.ndarray
+    c_err: np.ndarray
+    err: np.ndarray
+    below_srf: np.ndarray
+    reachable: np.ndarray
+    inside: np.ndarray
+    comfortable: np.ndarray
+    trusted: np.ndarray
+    outside: np.ndarray
+    q_loop: np.ndarray
+    q_l: np.ndarray
+    q_l_np: np.ndarray
+    h_e: np.ndarray
+    volts: np.ndarray
 
-    Raises
-    ------
-    SpecError
-        ``"--band"`` for a bad band, ``"--field"`` for a field that is not > 0.
-    """
-    plan = band_plan(band)
-    if not (field_v_per_m > 0 and math.isfinite(field_v_per_m)):
-        raise SpecError("--field", f"{field_v_per_m} must be a field strength > 0 in V/m (e.g. 1e-3)")
-    tuner = tuner_from_spec(spec.tuner)
-    turns = tuple(int(n) for n in sweep.tap_turns)
-    k = len(turns)
-    f = np.asarray(plan.frequencies_hz, dtype=float)
-    m = f.size
-    w = 2 * np.pi * f
-    notes: list[str] = []
-    if tuner.source == "default":
-        notes.append("the spec has no [tuner]: assumed " + tuner.describe())
 
-    # Coverage per tap, on the fitted model with the proximity loss.
-    cover = [coverage(_tap_z(sweep, i), tuner.min_f, tuner.max_f, F_MIN_HZ, F_MAX_HZ) for i in range(k)]
-    f_low = np.array([c[0] for c in cover])
-    f_high = np.array([c[1] for c in cover])
-
-    # Every tap at every channel.
-    idx = np.arange(k)
-    z = sweep.model_z(f, proximity=True)[:, idx, idx]
-    c_all = tuning_capacitance(z, f[:, None])
-    srf = np.asarray(sweep.self_resonance_hz, dtype=float)
-    below_srf = np.where(np.isfinite(srf), f[:, None] < srf[None, :], True)
-    reachable = (c_all >= tuner.min_f) & (c_all <= tuner.max_f) & below_srf & (c_all > 0)
-    err = _interp_error(sweep, f)
-    f_sw_lo, f_sw_hi = float(np.min(sweep.frequencies_hz)), float(np.max(sweep.frequencies_hz))
-    outside = f > f_sw_hi * (1 + 1e-9)
-    trusted = (err < RELIABLE_BELOW) & ~outside[:, None]
-    c_err = np.abs(c_all) * err
-    inside_margin = (c_all - c_err >= tuner.min_f) & (c_all + c_err <= tuner.max_f)
-
-    q_loop = np.full((m, k), np.nan)
-    q_cap_eff = np.full((m, k), np.nan)
-    q_loop_np = np.full((m, k), np.nan)
+def _loaded_q(sweep: SweepResult, tuner: Tuner, f, c_all, reachable):
+    """Loop Q, loaded Q and loaded Q without proximity effect of every reachable tap setting."""
+    m, k = c_all.shape
+    q_loop, q_cap, q_loop_np = (np.full((m, k), np.nan) for _ in range(3))
     for i in range(k):
         sel = reachable[:, i]
         if not np.any(sel):
@@ -786,32 +934,46 @@ def run_tune(spec, sweep: SweepResult, band: str = "itu-1", field_v_per_m: float
         # The capacitor's loss as a Q of the tuned circuit: its conductance ωC_t/Q_cap against
         # the same stored energy, ωB'/(2ωC_t/Q_cap) (so the lossless self-capacitance dilutes it).
         _, _, slope, _ = _slope_and_conductance(_tap_z(sweep, i), fs, cs)
-        q_cap_eff[sel, i] = slope * tuner.q / (2 * cs)
+        q_cap[sel, i] = slope * tuner.q / (2 * cs)
     with np.errstate(invalid="ignore"):
         q_l = np.where(reachable, reference.q_loaded(np.where(reachable, q_loop, 1.0),
-                                                     np.where(reachable, q_cap_eff, 1.0)), np.nan)
+                                                     np.where(reachable, q_cap, 1.0)), np.nan)
         q_l_np = np.where(reachable, reference.q_loaded(np.where(reachable, q_loop_np, 1.0),
-                                                        np.where(reachable, q_cap_eff, 1.0)), np.nan)
+                                                        np.where(reachable, q_cap, 1.0)), np.nan)
+    return q_loop, q_l, q_l_np
 
-    # Effective height of each tap's active turns.
+
+def _evaluate_taps(sweep: SweepResult, tuner: Tuner, f: np.ndarray, turns, field_v_per_m: float) -> _TapGrid:
+    """Stage 1: the setting, its margins, Q and tuner voltage of every tap at every channel."""
+    k = len(turns)
+    idx = np.arange(k)
+    z = sweep.model_z(f, proximity=True)[:, idx, idx]
+    c_all = tuning_capacitance(z, f[:, None])
+    srf = np.asarray(sweep.self_resonance_hz, dtype=float)
+    below_srf = np.where(np.isfinite(srf), f[:, None] < srf[None, :], True)
+    err = _interp_error(sweep, f)
+    c_err = np.abs(c_all) * err
+    reach, inside, comfy = tuner_margins(c_all, c_err, tuner)
+    reach &= below_srf
+    inside &= below_srf
+    comfy &= below_srf
+    outside = f > float(np.max(sweep.frequencies_hz)) * (1 + 1e-9)
+    trusted = (err < RELIABLE_BELOW) & ~outside[:, None]
+    q_loop, q_l, q_l_np = _loaded_q(sweep, tuner, f, c_all, reach)
     areas = sweep.geometry.turn_area_m2()
     perimeter = float(sweep.geometry.lengths_m[(np.array(sweep.geometry.kinds) == WINDING)
                                                & (sweep.geometry.turn == 0)].sum())
     h_e = np.column_stack([
         reference.effective_height_small_loop(areas[:n].mean(), f, turns=n, perimeter_m=perimeter)
         for n in turns])
-    volts = q_l * h_e * field_v_per_m
+    return _TapGrid(c_all, c_err, err, below_srf, reach, inside, comfy, trusted, outside,
+                    q_loop, q_l, q_l_np, h_e, q_l * h_e * field_v_per_m)
 
-    # Choose a tap per channel.
-    klass = np.where(reachable, np.where(inside_margin & trusted, 3, np.where(inside_margin, 2,
-                                                                              np.where(trusted, 1, 0))), -1)
-    choice = np.full(m, -1, dtype=int)
-    for j in range(m):
-        if np.all(klass[j] < 0):
-            continue
-        best = klass[j].max()
-        cand = np.flatnonzero(klass[j] == best)
-        choice[j] = int(cand[np.argmax(np.where(np.isfinite(volts[j, cand]), volts[j, cand], -np.inf))])
+
+def _chart(g: _TapGrid, choice, raw_switches, f, turns, tuner: Tuner, plan: BandPlan,
+           f_high: np.ndarray) -> ChannelChart:
+    """Stage 3: the chosen tap's numbers per channel."""
+    m = f.size
     ok = choice >= 0
     pick = np.maximum(choice, 0)
     rows = np.arange(m)
@@ -819,15 +981,12 @@ def run_tune(spec, sweep: SweepResult, band: str = "itu-1", field_v_per_m: float
     def chosen(a):
         return np.where(ok, a[rows, pick], np.nan)
 
-    cap = chosen(c_all)
-    cap_err = chosen(c_err)
+    cap = chosen(g.c_all)
     pos = tuner.position_m(cap) if tuner.has_position else np.full(m, np.nan)
-    # Setting change to the next channel on the same tap (dC/df × spacing, by differences).
-    dcdf = np.gradient(c_all, f, axis=0) if m > 1 else np.zeros_like(c_all)
+    dcdf = np.gradient(g.c_all, f, axis=0) if m > 1 else np.zeros_like(g.c_all)
     c_step = np.abs(chosen(dcdf)) * plan.spacing_hz
     pos_step = c_step / tuner.capacitance_per_m if isinstance(tuner, PlateTuner) else np.full(m, np.nan)
-    ql = chosen(q_l)
-    qlnp = chosen(q_l_np)
+    ql, qlnp = chosen(g.q_l), chosen(g.q_l_np)
     bw, bw_np = np.full(m, np.nan), np.full(m, np.nan)
     if np.any(ok):
         bw[ok] = reference.bandwidth_3db(f[ok], ql[ok])
@@ -835,38 +994,53 @@ def run_tune(spec, sweep: SweepResult, band: str = "itu-1", field_v_per_m: float
     with np.errstate(invalid="ignore", divide="ignore"):
         audio_cut = ok & (bw < 2 * plan.audio_hz)
         audio_db = np.where(ok, 10 * np.log10(1 + (2 * plan.audio_hz / bw) ** 2), np.nan)
-    e_ch = chosen(err)
-    reliable = ok & (e_ch < RELIABLE_BELOW) & ~outside
-    edge = ok & (np.nan_to_num(chosen(inside_margin.astype(float))) < 0.5)
-    volts_ch = chosen(volts)
-    current = volts_ch * w * cap
-    h_ch = chosen(h_e)
+    e_ch = chosen(g.err)
+    volts = chosen(g.volts)
+    order = sorted(range(len(turns)), key=lambda i: -turns[i])
+    switches = []
+    for j, a, b in raw_switches:
+        skipped = order[order.index(a) + 1:order.index(b)]
+        last = f[:j][choice[:j] == a]
+        switches.append(TapSwitch(int(turns[a]), int(turns[b]), float(last[-1]) if last.size else math.nan,
+                                  float(f[j]), _switch_reason(j, a, b, f, turns, g.c_all, g.reachable,
+                                                              skipped, tuner, float(f_high[a]))))
+    return ChannelChart(
+        frequencies_hz=f, capacitance_all_f=g.c_all, reachable=g.reachable, comfortable=g.comfortable,
+        q_loaded_all=g.q_l, channel_tap_index=choice,
+        channel_reason=tuple("" if ok[j] else _reason(g.c_all[j], g.below_srf[j], tuner, turns)
+                             for j in range(m)),
+        capacitance_f=cap, capacitance_error_f=chosen(g.c_err), position_m=pos,
+        capacitance_step_f=c_step, position_step_m=pos_step, q_loop=chosen(g.q_loop), q_loaded=ql,
+        q_loaded_no_proximity=qlnp, bandwidth_hz=bw, bandwidth_no_proximity_hz=bw_np,
+        audio_cut=audio_cut, audio_loss_db=audio_db, error_estimate=e_ch,
+        reliable=ok & (e_ch < RELIABLE_BELOW) & ~g.outside,
+        edge=ok & (np.nan_to_num(chosen(g.inside.astype(float))) < 0.5), outside_sweep=g.outside,
+        effective_height_m=chosen(g.h_e), voltage_v=volts, current_a=volts * 2 * np.pi * f * cap,
+        switches=tuple(switches))
 
-    # Gaps and overlaps over the band's carriers.
+
+def _coverage(spec, sweep: SweepResult, tuner: Tuner, f: np.ndarray, turns) -> Coverage:
+    """Stage 2: coverage per tap, its uncertainty, gaps, overlaps and (with gaps) suggested taps."""
+    cover = [coverage(_tap_z(sweep, i), tuner.min_f, tuner.max_f, F_MIN_HZ, F_MAX_HZ)
+             for i in range(len(turns))]
+    f_low = np.array([c[0] for c in cover])
+    f_high = np.array([c[1] for c in cover])
+
+    # f ∝ 1/√(L C_total), so δf/f = ε/2 at each end.
+    def rel(ends):
+        return np.array([np.interp(v, sweep.frequencies_hz, sweep.error_estimate[:, i]) / 2
+                         if np.isfinite(v) else np.nan for i, v in enumerate(ends)])
+
     gaps = _gaps(float(f[0]), float(f[-1]), f_low, f_high)
-    overlaps = _overlaps(turns, f_low, f_high)
-    if np.any(~ok) and not gaps:  # channels missed only by the margin of the SRF test
-        notes.append("some channels inside the taps' coverage could not be tuned below the self-resonance")
-
-    # Coverage uncertainty: f ∝ 1/√(L C_total), so δf/f = ε/2 at each end.
-    e_lo = np.array([np.interp(v, sweep.frequencies_hz, sweep.error_estimate[:, i]) / 2 if np.isfinite(v) else np.nan
-                     for i, v in enumerate(f_low)])
-    e_hi = np.array([np.interp(v, sweep.frequencies_hz, sweep.error_estimate[:, i]) / 2 if np.isfinite(v) else np.nan
-                     for i, v in enumerate(f_high)])
-
-    # Suggested taps when there are gaps.
     margin = max(OVERLAP_MARGIN, float(np.max(sweep.inductance_error)))
     suggestion = suggest_taps(spec, sweep, tuner, float(f[0]), float(f[-1]), margin) if gaps else None
+    return Coverage(f_low, f_high, np.column_stack([rel(f_low), rel(f_high)]),
+                    np.array(gaps, dtype=float).reshape(-1, 2), tuple(_overlaps(turns, f_low, f_high)),
+                    suggestion)
 
-    # Dense curves for the chart.
-    f_curve = np.linspace(0.9 * f[0], 1.06 * f[-1], 600)
-    zc = sweep.model_z(f_curve, proximity=True)[:, idx, idx]
-    c_curve = tuning_capacitance(zc, f_curve[:, None])
-    for i in range(k):
-        n_ok = _first_branch(c_curve[:, i])
-        c_curve[n_ok:, i] = np.nan
 
-    held = held_back_error(sweep)
+def _model_notes(sweep: SweepResult, held: HeldBackError | None, outside: np.ndarray) -> list[str]:
+    notes = []
     if held is None:
         notes.append("no direct MoM point outside the fit window in this sweep: the model's error "
                      "rests on the sweep's error estimate alone (run the sweep higher, above "
@@ -877,71 +1051,102 @@ def run_tune(spec, sweep: SweepResult, band: str = "itu-1", field_v_per_m: float
                      f"{sweep.model.fit_hz.min() / 1e6:.3g}–{sweep.model.fit_hz.max() / 1e6:.3g} MHz): they do "
                      "not test the model's extrapolation down to the band's lower channels")
     if np.any(outside):
-        notes.append(f"{int(outside.sum())} channels lie above the sweep ({f_sw_hi / 1e3:.0f} kHz): "
-                     "their model points are not trusted")
-    n_edge = int(edge.sum())
+        notes.append(f"{int(outside.sum())} channels lie above the sweep "
+                     f"({float(np.max(sweep.frequencies_hz)) / 1e3:.0f} kHz): their model points are not trusted")
+    return notes
+
+
+def _chart_notes(chart: ChannelChart, cov: Coverage, turns) -> list[str]:
+    """Why the switch points lie where they do, edge channels, and taps the chart does not use
+    (consistent with the gaps: never "not needed" while a gap remains)."""
+    notes = [f"tap chart rule: {chart.rule}"]
+    for s in chart.switches:
+        notes.append(f"switch tap {s.from_tap} → {s.to_tap} between {s.last_hz / 1e3:.0f} and "
+                     f"{s.first_hz / 1e3:.0f} kHz: {s.reason}")
+    n_edge = int(chart.edge.sum())
     if n_edge:
         notes.append(f"{n_edge} channel{'s are' if n_edge > 1 else ' is'} tuned within the model's "
                      f"uncertainty of a tuner range end: {'they' if n_edge > 1 else 'it'} may not be "
                      "reachable on the real loop")
-
-    unused = [n for i, n in enumerate(turns) if not np.any(choice == i)]
+    ok = chart.channel_tap_index >= 0
+    unused = [n for i, n in enumerate(turns) if not np.any(chart.channel_tap_index == i)]
     if unused and np.any(ok):
-        notes.append(f"tap{'s' if len(unused) > 1 else ''} {', '.join(map(str, unused))} "
-                     f"{'are' if len(unused) > 1 else 'is'} not needed for this band: another tap "
-                     "reaches every channel with more signal")
-    reasons = tuple("" if ok[j] else _reason(c_all[j], below_srf[j], tuner, turns) for j in range(m))
-    cautions = _cautions(tuner, f, ok, ql, cap, choice, turns)
-    notes.extend(_tuner_notes(tuner, pos, ok, pos_step, f, plan))
+        which = f"tap{'s' if len(unused) > 1 else ''} {', '.join(map(str, unused))}"
+        are = "are" if len(unused) > 1 else "is"
+        if cov.gaps_hz.size:
+            notes.append(f"{which} {are} not used: {'they tune' if len(unused) > 1 else 'it tunes'} no "
+                         "channel of the band that the chart does not already tune on a tap with more "
+                         f"turns, and {'do' if len(unused) > 1 else 'does'} not close the gap"
+                         f"{'s' if len(cov.gaps_hz) > 1 else ''} (see the suggested taps)")
+        else:
+            notes.append(f"{which} {are} not used for this band: the taps with more turns tune every "
+                         f"channel {'they' if len(unused) > 1 else 'it'} would, inside the tuner's range "
+                         "with the margin")
+    return notes
 
+
+def run_tune(spec, sweep: SweepResult, band="itu-1", field_v_per_m: float = 1e-3) -> TuneResult:
+    """Coverage per tap, the channel chart, bandwidth and tuner voltage of a loop spec.
+
+    Parameters
+    ----------
+    spec : simloop.spec.Spec
+        Its ``tuner`` (None: :data:`simloop.tuner.DEFAULT_TUNER`, and the result says so) and its
+        winding (for tap suggestions).
+    sweep : SweepResult
+        The impedance sweep of the same spec; its fitted model gives every frequency.
+    band : str or (float, float, float) or BandPlan
+        ``itu-1``, ``itu-2``, ``itu-3`` or a raster (start, stop, step) [Hz]
+        (see :func:`band_plan`).
+    field_v_per_m : float
+        Incident field strength for the tuner voltage. [V/m]
+
+    Raises
+    ------
+    SpecError
+        ``"--band"`` for a bad band, ``"--field"`` for a field that is not > 0.
+    """
+    plan = band_plan(band)
+    if not (field_v_per_m > 0 and math.isfinite(field_v_per_m)):
+        raise SpecError("--field", f"{field_v_per_m} V/m must be a field strength > 0 (e.g. 1mV/m)")
+    tuner = tuner_from_spec(spec.tuner)
+    turns = tuple(int(n) for n in sweep.tap_turns)
+    f = np.asarray(plan.frequencies_hz, dtype=float)
+    notes: list[str] = []
+    if tuner.source == "default":
+        notes.append("the spec has no [tuner]: assumed " + tuner.describe())
+
+    grid = _evaluate_taps(sweep, tuner, f, turns, field_v_per_m)
+    cov = _coverage(spec, sweep, tuner, f, turns)
+    choice, raw = assign_taps(turns, grid.reachable, grid.comfortable)
+    chart = _chart(grid, choice, raw, f, turns, tuner, plan, cov.f_high_hz)
+    if np.any(~(choice >= 0)) and not cov.gaps_hz.size:
+        notes.append("some channels inside the taps' coverage could not be tuned below the "
+                     "self-resonance or without a second switch back")
+
+    f_curve = np.linspace(0.9 * f[0], 1.06 * f[-1], 600)
+    idx = np.arange(len(turns))
+    c_curve = tuning_capacitance(sweep.model_z(f_curve, proximity=True)[:, idx, idx], f_curve[:, None])
+    for i in range(len(turns)):
+        c_curve[_first_branch(c_curve[:, i]):, i] = np.nan
+
+    held = held_back_error(sweep)
+    notes += _model_notes(sweep, held, grid.outside)
+    notes += _chart_notes(chart, cov, turns)
+    ok = choice >= 0
+    imperial = bool(getattr(spec, "imperial", False))
+    notes.extend(_tuner_notes(tuner, chart.position_m, ok, chart.position_step_m, f, imperial))
     return TuneResult(
-        name=sweep.name,
-        band=plan,
-        tuner=tuner,
-        field_v_per_m=float(field_v_per_m),
-        tap_turns=turns,
-        f_low_hz=f_low,
-        f_high_hz=f_high,
-        coverage_error=np.column_stack([e_lo, e_hi]),
-        self_resonance_hz=srf,
+        name=sweep.name, band=plan, tuner=tuner, field_v_per_m=float(field_v_per_m), tap_turns=turns,
+        self_resonance_hz=np.asarray(sweep.self_resonance_hz, dtype=float),
         self_capacitance_f=np.asarray(sweep.self_capacitance_f, dtype=float),
         inductance_h=np.asarray(sweep.inductance_h, dtype=float),
         inductance_error=np.asarray(sweep.inductance_error, dtype=float),
-        frequencies_hz=f,
-        capacitance_all_f=c_all,
-        reachable=reachable,
-        channel_tap_index=choice,
-        channel_reason=reasons,
-        capacitance_f=cap,
-        capacitance_error_f=cap_err,
-        position_m=pos,
-        capacitance_step_f=c_step,
-        position_step_m=pos_step,
-        q_loop=chosen(q_loop),
-        q_loaded=ql,
-        q_loaded_no_proximity=qlnp,
-        bandwidth_hz=bw,
-        bandwidth_no_proximity_hz=bw_np,
-        audio_cut=audio_cut,
-        audio_loss_db=audio_db,
-        error_estimate=e_ch,
-        reliable=reliable,
-        edge=edge,
-        outside_sweep=outside,
-        effective_height_m=h_ch,
-        voltage_v=volts_ch,
-        current_a=current,
-        curve_frequencies_hz=f_curve,
-        curve_capacitance_f=c_curve,
-        gaps_hz=np.array(gaps, dtype=float).reshape(-1, 2),
-        overlaps=tuple(overlaps),
-        suggestion=suggestion,
-        model_error=held,
-        fit_hz=np.asarray(sweep.model.fit_hz, dtype=float),
-        sweep_range_hz=(f_sw_lo, f_sw_hi),
-        cautions=tuple(cautions),
-        notes=tuple(notes),
-    )
+        coverage=cov, chart=chart, curve_frequencies_hz=f_curve, curve_capacitance_f=c_curve,
+        model_error=held, fit_hz=np.asarray(sweep.model.fit_hz, dtype=float),
+        sweep_range_hz=(float(np.min(sweep.frequencies_hz)), float(np.max(sweep.frequencies_hz))),
+        cautions=tuple(_cautions(tuner, f, ok, chart.q_loaded, chart.capacitance_f, choice, turns)),
+        notes=tuple(notes), imperial=imperial)
 
 
 def _cautions(tuner: Tuner, f, ok, ql, cap, choice, turns) -> list[str]:
@@ -969,47 +1174,41 @@ def _cautions(tuner: Tuner, f, ok, ql, cap, choice, turns) -> list[str]:
     return out
 
 
-def _tuner_notes(tuner: Tuner, pos, ok, pos_step, f, plan: BandPlan) -> list[str]:
-    out = []
+def _tuner_notes(tuner: Tuner, pos, ok, pos_step, f, imperial: bool = False) -> list[str]:
+    """Notes on a plate tuner: slide span used, hand resolution, fringing, air layers, its Q."""
     if not isinstance(tuner, PlateTuner):
-        return out
+        return [f"capacitor Q {tuner.q:.4g}: {tuner.q_source}"]
     t = tuner
+
+    def ln(x):
+        return format_length(x, imperial)
+
+    out = [f"capacitor Q {t.q:.4g}: {t.q_source}"]
     used = pos[ok & np.isfinite(pos)]
     if used.size:
         frac = (used.max() - used.min()) / t.max_overlap_m
-        out.append(f"the band uses the slide from {used.min() * 1e3:.1f} to {used.max() * 1e3:.1f} mm, "
-                   f"{frac:.0%} of its {t.max_overlap_m * 1e3:.0f} mm")
+        out.append(f"the band uses the slide from {ln(used.min())} to {ln(used.max())}, "
+                   f"{frac:.0%} of its {ln(t.max_overlap_m)}")
         fine = ok & np.isfinite(pos_step) & (pos_step < SLIDE_RESOLUTION_M)
         if np.any(fine):
             c_need = float(np.nanmax(np.where(ok, t.capacitance_f(pos), np.nan))) * 1.1
-            d_new = t.thickness_for(c_need)
             out.append(
                 f"the slide moves less than {SLIDE_RESOLUTION_M * 1e3:.1f} mm per channel on "
                 f"{int(fine.sum())} channels (as little as {np.nanmin(pos_step[fine]) * 1e3:.2f} mm at "
                 f"{f[fine][np.nanargmin(pos_step[fine])] / 1e3:.0f} kHz): too fine to set by hand. "
-                f"A dielectric of {d_new * 1e3:.2g} mm (same material and plates) would spread the band "
-                "over the whole travel, or use a screw drive")
+                f"A dielectric of {ln(t.thickness_for(c_need))} (same material and plates) would spread "
+                "the band over the whole travel, or use a screw drive")
         xmin = float(used.min())
         if xmin > 0:
             fr = float(fringing_excess_palmer1937(xmin, t.dielectric_thickness_m)
                        + fringing_excess_palmer1937(t.plate_width_m, t.dielectric_thickness_m))
-            out.append(f"fringing is neglected in the plate law: Palmer's edge correction [mem] bounds it "
-                       f"at {fr:.1%} at the smallest overlap used ({xmin * 1e3:.1f} mm)")
+            out.append(f"fringing is neglected in the plate law: Palmer's edge correction (Palmer 1937; "
+                       f"approximate, an upper bound for a film dielectric) puts it at {fr:.1%} at the "
+                       f"smallest overlap used ({ln(xmin)})")
     air = 1 - float(air_layer_factor(t.dielectric_thickness_m, t.permittivity, 10e-6))
     out.append(f"an air layer of 10 µm between dielectric and plate would lower the capacitance by "
                f"{air:.0%}: press the plates flat and calibrate the scale against a capacitance meter")
     if t.travel_m > t.plate_length_m:
-        out.append(f"the travel ({t.travel_m * 1e3:.0f} mm) exceeds the plate length "
-                   f"({t.plate_length_m * 1e3:.0f} mm): the last {(t.travel_m - t.plate_length_m) * 1e3:.0f} mm "
-                   "add no capacitance")
-    near = dielectrics_near(t.permittivity)
-    if near:
-        names = ", ".join(f"{d.name} ({d.permittivity[0]:g}–{d.permittivity[1]:g})" for d in near)
-        best = max(d.q_range[1] for d in near)
-        text = (f"ε_r {t.permittivity:g} is typical of {names} (values from memory, at about 1 MHz); "
-                f"their loss allows a capacitor Q of at most about {best:.0f}")
-        if best < t.q:
-            text += (f", below the Q used ({t.q:g}): give tuner.q from a measurement, or the "
-                     "bandwidths here are too narrow and the voltages too high")
-        out.append(text)
+        out.append(f"the travel ({ln(t.travel_m)}) exceeds the plate length ({ln(t.plate_length_m)}): "
+                   f"the last {ln(t.travel_m - t.plate_length_m)} add no capacitance")
     return out

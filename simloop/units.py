@@ -30,8 +30,13 @@ __all__ = [
     "awg_diameter_m",
     "as_written",
     "format_gauge",
+    "format_length",
+    "format_length_imperial",
     "format_quantity",
+    "is_imperial",
+    "parse_band_raster",
     "parse_gauge",
+    "parse_option",
     "parse_quantity",
 ]
 
@@ -53,6 +58,8 @@ _UNITS: Final[dict[str, dict[str, tuple[float, float]]]] = {
     # mS/m is added beside S/m because ground conductivity is usually quoted in mS/m.
     "conductivity": {"S/m": (1.0, 1.0), "mS/m": (1.0, 1e3)},
     "resistance": {"\u03a9": (1.0, 1.0), "ohm": (1.0, 1.0)},
+    # Field strength of a broadcast signal: usually quoted in mV/m or µV/m (dBµV/m is not taken).
+    "field": {"V/m": (1.0, 1.0), "mV/m": (1.0, 1e3), "\u03bcV/m": (1.0, 1e6), "uV/m": (1.0, 1e6)},
 }
 
 # What the messages list (µ written as the micro sign, aliases in parentheses).
@@ -64,16 +71,17 @@ _LISTED: Final[dict[str, str]] = {
     "angle": "deg (or \u00b0), rad",
     "conductivity": "S/m, mS/m",
     "resistance": "\u03a9 (ohm)",
+    "field": "V/m, mV/m, \u00b5V/m (uV/m)",
 }
 
 _EXAMPLE: Final[dict[str, str]] = {
     "length": "6 mm", "frequency": "1 MHz", "capacitance": "150 pF", "inductance": "180 uH",
-    "angle": "30 deg", "conductivity": "5.8e7 S/m", "resistance": "50 ohm",
+    "angle": "30 deg", "conductivity": "5.8e7 S/m", "resistance": "50 ohm", "field": "1 mV/m",
 }
 
 _SI_NAME: Final[dict[str, str]] = {
     "length": "m", "frequency": "Hz", "capacitance": "F", "inductance": "H", "angle": "deg",
-    "conductivity": "S/m", "resistance": "\u03a9",
+    "conductivity": "S/m", "resistance": "\u03a9", "field": "V/m",
 }
 
 _ARTICLE: Final[dict[str, str]] = {k: "an" if k[0] in "aeiou" else "a" for k in _UNITS}
@@ -83,6 +91,18 @@ KINDS: Final[tuple[str, ...]] = tuple(_UNITS)
 
 _NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
 _QUANTITY_RE = re.compile(rf"^\s*(?P<num>{_NUMBER})\s*(?P<unit>.*?)\s*$")
+# A simple fraction, optionally after a whole number: "1/4 in", "26 1/2 in", "-3/8 in".
+_FRACTION_RE = re.compile(r"^\s*(?P<sign>[+-]?)(?:(?P<whole>\d+)\s+)?(?P<num>\d+)\s*/\s*(?P<den>\d+)"
+                          r"\s*(?P<unit>(?:[^\d\s./].*?)?)\s*$")
+
+
+def _fraction_value(match: re.Match, key: str, shown: str) -> float:
+    """The number of a fraction match: whole + num/den with its sign (den > 0)."""
+    den = int(match.group("den"))
+    if den == 0:
+        raise SpecError(key, f"{shown} divides by zero")
+    value = int(match.group("whole") or 0) + int(match.group("num")) / den
+    return -value if match.group("sign") == "-" else value
 
 
 def _normalise(text: str) -> str:
@@ -182,11 +202,15 @@ def parse_quantity(value: object, kind: str, key: str = "", *, sign: str = "any"
         if not math.isfinite(result):
             raise SpecError(key, f"must be a finite number, got {shown}")
     else:
-        match = _QUANTITY_RE.match(_normalise(value))
-        if match is None:
+        fraction = _FRACTION_RE.match(_normalise(value))
+        match = None if fraction else _QUANTITY_RE.match(_normalise(value))
+        if fraction:
+            number, unit = _fraction_value(fraction, key, shown), fraction.group("unit") or ""
+        elif match is None:
             raise SpecError(key, f'{shown} is not {_ARTICLE[kind]} {kind}; write a number and a '
                                  f'unit, e.g. "{example}"')
-        number, unit = match.group("num"), match.group("unit")
+        else:
+            number, unit = match.group("num"), match.group("unit")
         if not unit:
             bare = "degrees" if kind == "angle" else _SI_NAME[kind]
             raise SpecError(key, f"{shown} has no unit; {_units_hint(kind)} "
@@ -222,6 +246,7 @@ _DISPLAY: Final[dict[str, tuple[tuple[str, float, float], ...]]] = {
     "angle": (("deg", 1.0, 0.0),),
     "conductivity": (("S/m", 1.0, 0.0),),
     "resistance": (("ohm", 1.0, 0.0),),
+    "field": (("V/m", 1.0, 1.0), ("mV/m", 1e-3, 1e-3), ("uV/m", 1e-6, 0.0)),
 }
 
 
@@ -251,6 +276,103 @@ def format_quantity(value: float, kind: str, digits: int = 4) -> str:
         return f"{value} {_DISPLAY[kind][-1][0]}"
     unit, scale = next((u, s) for u, s, threshold in _DISPLAY[kind] if abs(value) >= threshold)
     return f"{value / scale:.{digits}g} {unit}"
+
+
+# --- Inches for inch builders -------------------------------------------------------------------
+
+INCH_M: Final = 0.0254  #: the international inch (1959), exact. [m]
+FOOT_M: Final = 0.3048  #: the international foot, exact. [m]
+
+
+def is_imperial(text: object) -> bool:
+    """True when a spec value was written in inches or feet (``"31.5 in"``, ``"1/4 in"``, ``"2 ft"``)."""
+    return isinstance(text, str) and re.search(r"(?:\d|\s)(?:in|ft)\s*$",
+                                               _normalise(text).strip().strip('"')) is not None
+
+
+def format_length_imperial(value_m: float, fraction: int = 32) -> str:
+    """A length in inches and feet with the metric value after it.
+
+    Below a foot: inches to the nearest 1/``fraction`` in, ``0.00635 -> '1/4 in (6.35 mm)'``; from
+    a foot up: feet and inches to the nearest 1/8 in, then inches, ``0.6731 -> '2 ft 2 1/2 in
+    (26 1/2 in, 0.6731 m)'``.
+
+    Parameters
+    ----------
+    value_m : float
+        Length. [m]
+    fraction : int
+        Finest fraction of an inch shown below a foot (a power of two). [-]
+    """
+    if not math.isfinite(value_m):
+        return format_quantity(value_m, "length")
+    sign = "-" if value_m < 0 else ""
+    metric = format_quantity(value_m, "length")
+    if abs(value_m) < FOOT_M:
+        return f"{sign}{_inches(round(abs(value_m) / INCH_M * fraction), fraction)} in ({metric})"
+    eighths = round(abs(value_m) / INCH_M * 8)
+    feet, rest = divmod(eighths, 12 * 8)
+    ft = f"{sign}{feet} ft" + (f" {_inches(rest, 8)} in" if rest else "")
+    return f"{ft} ({sign}{_inches(eighths, 8)} in, {metric})"
+
+
+def _inches(units: int, fraction: int) -> str:
+    """``units`` of 1/``fraction`` inch as a whole number and a reduced fraction: 52, 2 → '26'."""
+    whole, rest = divmod(units, fraction)
+    if rest == 0:
+        return f"{whole}"
+    g = math.gcd(rest, fraction)
+    frac = f"{rest // g}/{fraction // g}"
+    return f"{whole} {frac}" if whole else frac
+
+
+def format_length(value_m: float, imperial: bool = False) -> str:
+    """A length for the user: metric, or inches/feet with the metric value when ``imperial``."""
+    return format_length_imperial(value_m) if imperial else format_quantity(value_m, "length")
+
+
+# --- Command-line options ------------------------------------------------------------------------
+
+def parse_option(text: object, kind: str, option: str, *, sign: str = "positive") -> float:
+    """Parse a command-line quantity such as ``--field 1mV/m`` or ``--z0 50ohm`` into SI.
+
+    A bare number is the SI base unit of ``kind`` (V/m, Ω, Hz), as in spec files. Errors are
+    :class:`SpecError` naming the option.
+    """
+    if isinstance(text, str):
+        stripped = text.strip()
+        try:
+            return parse_quantity(float(stripped), kind, option, sign=sign)
+        except ValueError:
+            return parse_quantity(stripped, kind, option, sign=sign)
+    return parse_quantity(text, kind, option, sign=sign)
+
+
+_SHORT_FREQUENCY = re.compile(r"^\s*([+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?)\s*([kKM]?)\s*$")
+_RASTER_RULE = ("use itu-1, itu-2, itu-3 or START:STOP:STEP with frequencies such as 530k, 1.7M, "
+                "530kHz or 530000 (bare numbers are Hz), e.g. 530k:1700k:10k")
+
+
+def parse_band_raster(text: str, option: str = "--band") -> tuple[float, float, float]:
+    """``"530k:1700k:10k"`` → (start, stop, step) in Hz; ``k``/``M`` alone are kHz/MHz here.
+
+    Only the syntax is checked here; the band's own rules (order, limits) are the tuning
+    module's (:func:`simloop.tuning.band_plan`).
+    """
+    parts = str(text).split(":")
+    if len(parts) != 3:
+        raise SpecError(option, f'"{text}" is not a band plan; {_RASTER_RULE}')
+    out = []
+    for part in parts:
+        m = _SHORT_FREQUENCY.match(part)
+        if m:
+            out.append(float(m.group(1)) * {"": 1.0, "k": 1e3, "K": 1e3, "M": 1e6}[m.group(2)])
+            continue
+        try:
+            out.append(parse_quantity(part.strip(), "frequency", option))
+        except SpecError:
+            raise SpecError(option, f'"{text}": "{part}" is not a frequency; {_RASTER_RULE}') from None
+    return out[0], out[1], out[2]
 
 
 # --- American Wire Gauge -------------------------------------------------------------------------

@@ -33,7 +33,7 @@ sphere with sin θ weights and divides it by the input power ½ Re(V I*). Energy
 it 1 for any lossless model; PyNEC's ``get_gain_mean`` is a mean of dB values and is not it.
 
 Over real ground a loss-free input resistance that is negative or below ~0.1 Ω is not resolved
-by the solver (notes/pynec.md: a lossless coil showed −0.05 Ω over Sommerfeld ground); it is
+by the solver (docs/notes/pynec.md: a lossless coil showed −0.05 Ω over Sommerfeld ground); it is
 reported as below the solver's resolution, never as a number.
 
 This module computes only: no printing and no files (:mod:`simloop.report_validate` writes).
@@ -50,6 +50,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
 from simloop.geometry import LoopGeometry
 from simloop.impedance import ASYMMETRY_LIMIT, WINDOW_TOP, SweepResult
@@ -57,18 +58,19 @@ from simloop.losses import proximity_factors, proximity_resistance, winding_leng
 from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
 from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
 
-#: Over real ground, a loss-free input resistance below this is not resolved (notes/pynec.md:
+#: Over real ground, a loss-free input resistance below this is not resolved (docs/notes/pynec.md:
 #: a lossless coil showed R = −0.05 Ω with Sommerfeld ground). [Ω]
 GROUND_RESOLUTION_OHM = 0.1
 BELOW_RESOLUTION = "below solver resolution"
-#: Accepted range of the average gain test (common NEC practice, REFERENCES §9).
+#: Accepted range of the power balance (radiated over accepted power of a lossless model): ±5 %,
+#: common practice in method-of-moments modelling (our tolerance, not a published limit).
 AGT_ACCEPT = (0.95, 1.05)
 #: Beyond this range the input resistance is not merely imprecise but wrong.
 AGT_BROKEN = (0.8, 1.25)
 #: Convergence meshes, as multiples of the sweep mesh's target segment length.
 COARSE_FACTOR = 1.5
 FINE_FACTOR = 0.75
-#: Exponent of the pitch-rule error in the winding segment length (notes/pynec.md: Richardson
+#: Exponent of the pitch-rule error in the winding segment length (docs/notes/pynec.md: Richardson
 #: extrapolation with 1.5 from the 2.5 and 1.67 × pitch pair recovered L within 0.1–0.4 %).
 RICHARDSON_ORDER = 1.5
 #: Observed orders outside this range do not count as a trend.
@@ -79,7 +81,7 @@ SPREAD_OK, SPREAD_CAUTION = 0.02, 0.05
 #: Spread of the series resistance over the meshes above which Q is less certain.
 R_SPREAD_CAUTION = 0.05
 #: MoM copper loss against the exact skin-effect formula (NEC type-5 loads were within
-#: 0.1–0.3 % on a single loop, notes/pynec.md); beyond this something else is in the loss.
+#: 0.1–0.3 % on a single loop, docs/notes/pynec.md); beyond this something else is in the loss.
 R_LOSS_CAUTION = 0.05
 #: Direct-MoM check of the self-resonance: bracket either side of the model's prediction; a
 #: caution when the misfit moves the model's impedance at the top of the band by more than this.
@@ -93,7 +95,6 @@ Q_USED_BY_TUNE = "proximity-corrected"
 #: Far-field grid step for the average gain test. [deg]
 AGT_STEP_DEG = 5.0
 
-ETA0 = reference.MU0 * C0  #: impedance of free space [Ω]
 
 _MESH_RULES_CAUTION = {
     "segment <= 2 x pitch on the winding": "pitch rule",
@@ -487,7 +488,7 @@ def _handbook_inductance(spec, n: int) -> tuple[float, str]:
     d_out = 0.5 * (ws[0] + hs[0]) + d
     d_in = 0.5 * (ws[-1] + hs[-1]) - d
     src = ("Mohan et al. 1999 current-sheet expression for square spirals (empirical, fitted to planar "
-           "spirals; coefficients from memory)"
+           "spirals; coefficients approximate, to be confirmed against the paper)"
            + (", mean side of the rectangle" if abs(w - h) > 1e-9 else ""))
     return inductance_square_spiral_current_sheet(d_out, d_in, n), src
 
@@ -605,7 +606,7 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
         if agt is not None and r_in0 is not None and not perfect:
             rows.append(_check("R_rad far field", "ohm", n, f, agt * r_in0, fr["rr_qs"], fr["rr_hb"],
                                "MoM far field: AGT × lossless input resistance", _SRC_QS_RR, _SRC_HB_RR,
-                               note=f"average gain {agt:.4f}"))
+                               note=f"radiated/accepted power {agt:.4f}"))
     # Wire loss: skin effect only (what NEC models), then with the proximity effect
     rho = sweep.resistivity_ohm_m
     if rho is not None:
@@ -619,7 +620,7 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
         rows.append(_check(
             "R_loss skin+prox", "ohm", n, f, None if r_loss is None else r_loss + fr["prox"],
             fr["qs_skin"] + fr["prox"], fr["hb_prox"],
-            "MoM skin loss + proximity term of simloop.losses (as tune/couple use)",
+            "MoM skin loss + proximity term of simloop.losses (as tune uses)",
             "exact skin effect × path length + Smith 1972 proximity factor on the winding",
             "Smith 1972: (N P/(2πa)) R_s (1 + R_p/R_0)",
             note=f"R_p/R_0 = {tf.proximity_factor:.4f} for {n} turns at c/a = "
@@ -636,7 +637,7 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
         rows.append(_check("Q skin+prox", "-", n, f, zs_l.imag / (zs_l.real + fr["prox"]) if ok_q else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "MoM series branch + proximity term (used by tune/couple)",
+                           "MoM series branch + proximity term (used by tune)",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
                            "ωL_hb / (Smith 1972 loss + Balanis R_rad)", note=q_note))
     return rows
@@ -689,7 +690,7 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
         l_full, _ = _handbook_inductance(spec, big_n)
         hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
         note += (f"; Medhurst C = {float(c_med) * 1e12:.1f} pF for the whole winding as a solenoid of equal "
-                 f"perimeter (REFERENCES §5: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
+                 f"perimeter (Medhurst 1947 measured solenoids: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
     return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
                   "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
                   "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, note=note)
@@ -698,7 +699,7 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
 def _average_gains(ff, sweep: SweepResult, f: float):
     """AGT of each tap driven alone (others open), by superposition of the shorted excitations."""
     if isinstance(ff, SolverError):
-        return [], {}, [f"average gain test not run: {ff}"]
+        return [], {}, [f"power balance (radiated against accepted power) not run: {ff}"]
     rows, by_tap, notes = [], {}, []
     z = np.linalg.inv(ff.y_raw)  # as solved, not symmetrised: the exact open-circuit drive
     for i, n in enumerate(sweep.tap_turns):
@@ -707,7 +708,7 @@ def _average_gains(ff, sweep: SweepResult, f: float):
         e_p = np.tensordot(v, ff.e_phi_v, axes=1)
         p_in = 0.5 * float(z[i, i].real)  # ½ Re(V I*), I = 1 A
         if p_in <= 0:
-            notes.append(f"tap {n}: lossless input resistance {z[i, i].real:.3e} Ω is not positive; no average gain")
+            notes.append(f"tap {n}: lossless input resistance {z[i, i].real:.3e} Ω is not positive; no power balance")
             continue
         agt, p_rad = average_gain(e_t, e_p, ff.theta_deg, ff.phi_deg, p_in)
         rows.append(AverageGain(n, f, agt, p_rad, p_in, float(z[i, i].real), AGT_ACCEPT[0] <= agt <= AGT_ACCEPT[1]))
@@ -820,7 +821,7 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
     if ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
         notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
                      "below the solver's resolution: radiation resistance not validated there; the "
-                     "average gain test ran in free space")
+                     "power balance ran in free space")
 
     # --- Mesh convergence --------------------------------------------------------------------
     sweep_run = _mesh_run("sweep", mesh, geom, spec)
@@ -868,7 +869,7 @@ def _convergence_plan(sweep: SweepResult) -> dict | None:
                   ("sweep", sweep.mesh),
                   ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
     for label, m in candidates:
-        if m.shortest_m < 2 * m.radius_m or m.n_segments > 20000:
+        if m.shortest_m < 2 * m.radius_m or m.n_segments > MAX_SEGMENTS:
             return None
     srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
     f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
@@ -986,11 +987,13 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
                                                   f"impedance at the top of the band by about {in_band:.1%}"))
     for a in agt_rows:
         if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
-            per_tap[a.tap].append(("unreliable", f"tap {a.tap}: average gain {a.agt:.3f}: the MoM input "
-                                                 f"resistance disagrees with its own far field"))
+            per_tap[a.tap].append(("unreliable", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
+                                                 f"against accepted power): the MoM input resistance "
+                                                 f"disagrees with its own far field"))
         elif not a.accepted:
-            per_tap[a.tap].append(("caution", f"tap {a.tap}: average gain {a.agt:.3f} outside "
-                                              f"{AGT_ACCEPT[0]}–{AGT_ACCEPT[1]}: its input resistance is "
+            per_tap[a.tap].append(("caution", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
+                                              f"against accepted power), beyond ±{AGT_ACCEPT[1] - 1:.0%}: "
+                                              f"its input resistance is "
                                               f"inconsistent with its far field by {a.agt - 1:+.1%} (radiation "
                                               f"resistance uncertain by that much)"))
     if convergence_run and conv:
@@ -1027,5 +1030,6 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
     st = status(everything)
     if st == "ok":
         reasons = ("every tap's MoM inductance is within 2 % of the quasi-static sum, the mesh-convergence "
-                   "spread is below 2 %, the average gain lies in 0.95–1.05 and no mesh rule warns",)
+                   "spread is below 2 %, the power balance (radiated over accepted power) is within ±5 % and no "
+                   "mesh rule warns",)
     return Verdict(st, reasons), tap_verdicts

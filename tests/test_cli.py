@@ -1,4 +1,8 @@
-"""The command line: exit status 2 with the key for every kind of bad input, outputs of check and sweep."""
+"""The command line: exit status 2 with the key for every kind of bad input, outputs of check and sweep.
+
+Sources: the exit-status convention is the project's own (README, "Using it"); the Touchstone
+option line follows IBIS Touchstone 1.1 (docs/references.md §8).
+"""
 
 import json
 import subprocess

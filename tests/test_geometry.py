@@ -1,4 +1,8 @@
-"""Contract tests run on every geometry builder (stacked and spiral), and the mesh rules."""
+"""Contract tests run on every geometry builder (stacked and spiral), and the mesh rules.
+
+Sources: NEC-2 modelling rules (Burke & Poggio, NOSC TD 116, 1981; docs/references.md §9) and our
+measured PyNEC windows (docs/notes/pynec.md); the geometry contracts are the project's own.
+"""
 
 import numpy as np
 import pytest

@@ -1,4 +1,8 @@
-"""Reading spec files (simloop.spec): the DESIGN.md §3 example, defaults, and every bad input."""
+"""Reading spec files (simloop.spec): the full example spec, defaults, and every bad input.
+
+Sources: the spec format is the project's own (README, "The spec file"); unit and wire values cite
+ASTM B258, IEC 60028 and ITU-R P.527 via docs/references.md §4 and §7.
+"""
 
 from __future__ import annotations
 
@@ -24,7 +28,7 @@ from simloop.spec import (
 )
 from simloop.units import awg_diameter_m
 
-# Copied verbatim from DESIGN.md §3 (comments included, they are part of what must parse).
+# The project's full example spec, every section (comments included, they are part of what must parse).
 DESIGN_EXAMPLE = '''\
 name = "shed-loop"                 # results go to results/<name>/ unless --out is given
 
@@ -113,7 +117,7 @@ def problems_of(text: str, source: str = "<string>") -> SpecError:
     return err.value
 
 
-# --- the DESIGN.md example -----------------------------------------------------------------------
+# --- the full example spec -----------------------------------------------------------------------
 
 def test_design_example_parses_to_si():
     spec = loads(DESIGN_EXAMPLE)
@@ -254,7 +258,10 @@ def test_plates_tuner_defaults():
                        "tuner.permittivity": "2.2", "tuner.travel": '"15 cm"'}))
     t = spec.tuner
     assert t is not None and t.kind == "plates"
-    assert (t.gaps, t.stray_f, t.q) == (2, 10e-12, 1000.0)
+    # Without tuner.q the Q comes from the dielectric: ε_r 2.2 matches PTFE, polypropylene and
+    # kraft paper; the lossiest, paper (tan δ 0.01, approximate), gives Q = 1/tan δ = 100.
+    assert (t.gaps, t.stray_f) == (2, 10e-12)
+    assert t.q == pytest.approx(100.0, rel=1e-12, abs=0) and "kraft paper" in t.q_source
     assert t.plate_width_m == pytest.approx(0.1) and t.plate_length_m == pytest.approx(0.2)
     assert t.dielectric_thickness_m == pytest.approx(1e-4) and t.travel_m == pytest.approx(0.15)
     assert t.permittivity == 2.2
@@ -305,7 +312,8 @@ def test_custom_conductivity_and_diameter():
 
 
 def test_aught_gauge():
-    wire = loads(make({"wire.gauge": '"4/0 AWG"', "winding.pitch": '"15 mm"',
+    # pitch ≥ 3 wire diameters (35.05 mm) so the tap leads clear the neighbouring turn
+    wire = loads(make({"wire.gauge": '"4/0 AWG"', "winding.pitch": '"36 mm"',
                        "leads.offset": '"5 cm"'})).wire
     assert wire.gauge_awg == -3
     assert wire.diameter_m == pytest.approx(awg_diameter_m(-3)) == pytest.approx(11.684e-3)
@@ -314,7 +322,7 @@ def test_aught_gauge():
 # --- ground --------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize(("soil", "eps", "sigma"), [
-    # ITU-R P.527 classes, values from memory (read off its Fig. 1), REFERENCES.md §7 [mem]
+    # ITU-R P.527 classes, values from memory (read off its Fig. 1), docs/references.md §7 [mem]
     ("sea-water", 70.0, 5.0), ("wet", 30.0, 1e-2), ("fresh-water", 80.0, 3e-3),
     ("medium-dry", 15.0, 1e-3), ("very-dry", 3.0, 1e-4),
 ])

@@ -1,4 +1,8 @@
-"""Quantities with units and wire gauges (simloop.units)."""
+"""Quantities with units and wire gauges (simloop.units).
+
+Sources: SI prefixes and unit symbols (BIPM, *The International System of Units*, 9th ed., 2019);
+AWG diameters from ASTM B258 (docs/references.md §4).
+"""
 
 from __future__ import annotations
 
@@ -25,6 +29,9 @@ EVERY_UNIT = [
     ("6 mm", "length", 6e-3),
     ("31.5 in", "length", 0.8001),  # 1 in = 25.4 mm exactly
     ("2 ft", "length", 0.6096),  # 1 ft = 304.8 mm exactly
+    ("26 1/2 in", "length", 0.6731),  # a simple fraction: 26.5 × 25.4 mm
+    ("1 mV/m", "field", 1e-3),
+    ("50 uV/m", "field", 50e-6),
     ("530 Hz", "frequency", 530.0),
     ("530 kHz", "frequency", 530e3),
     ("1.2 MHz", "frequency", 1.2e6),
@@ -256,7 +263,7 @@ def test_as_written():
 
 # --- AWG (ASTM B258) -----------------------------------------------------------------------------
 
-# REFERENCES.md §4: d = 0.127 mm · 92^((36 − n)/39). Check values [calc] from the B258 formula,
+# docs/references.md §4: d = 0.127 mm · 92^((36 − n)/39). Check values [calc] from the B258 formula,
 # rounded to 0.0001 mm here (the standard tabulates to 0.0001 in), hence abs = 0.5e-4 mm.
 @pytest.mark.parametrize(("gauge", "diameter_mm"), [
     (14, 1.6277), (18, 1.0237), (20, 0.8118), (22, 0.6438), (24, 0.5106),

@@ -1,7 +1,7 @@
 """Electrically small loop: radiation resistance, effective height, directivity.
 
-Balanis, *Antenna Theory*, ch. 5; Kraus, *Antennas*, ch. 6. Check values and marks from
-/work/shared/REFERENCES.md §3.
+Sources: Balanis, *Antenna Theory*, ch. 5; Kraus, *Antennas*, ch. 6. Check values and marks in
+docs/references.md §3.
 """
 
 import warnings
@@ -20,9 +20,9 @@ from simloop.reference import (
 
 
 @pytest.mark.parametrize("turns, area, f, expected, unit, half_digit", [
-    (1, 1.0, 1e6, 3.85893, 1e-6, 5e-6),     # REFERENCES §3 [calc]: 3.85893 µΩ
-    (10, 1.0, 530e3, 30.4488, 1e-6, 5e-5),  # REFERENCES §3 [calc]: 30.4488 µΩ
-    (10, 1.0, 1.7e6, 3.22302, 1e-3, 5e-6),  # REFERENCES §3 [calc]: 3.22302 mΩ
+    (1, 1.0, 1e6, 3.85893, 1e-6, 5e-6),     # docs/references.md §3 [calc]: 3.85893 µΩ
+    (10, 1.0, 530e3, 30.4488, 1e-6, 5e-5),  # docs/references.md §3 [calc]: 30.4488 µΩ
+    (10, 1.0, 1.7e6, 3.22302, 1e-3, 5e-6),  # docs/references.md §3 [calc]: 3.22302 mΩ
 ])
 def test_radiation_resistance_check_values(turns, area, f, expected, unit, half_digit):
     r = radiation_resistance_small_loop(area, f, turns)
@@ -31,14 +31,14 @@ def test_radiation_resistance_check_values(turns, area, f, expected, unit, half_
 
 
 def test_radiation_resistance_constant():
-    # REFERENCES §3: 320 π⁴ ≈ 31171 [mem for equation numbers]
+    # docs/references.md §3: 320 π⁴ ≈ 31171 [mem for equation numbers]
     lam = SPEED_OF_LIGHT / 1e6
     r = radiation_resistance_small_loop(1.0, 1e6)
     assert r / (1.0 / lam**2) ** 2 == pytest.approx(31171, abs=0.5)
 
 
 def test_effective_height_relation():
-    # REFERENCES §3 [num]: h_e = 2πNA/λ and R_r = 80π²(h_e/λ)² for an air loop
+    # docs/references.md §3 [num]: h_e = 2πNA/λ and R_r = 80π²(h_e/λ)² for an air loop
     for turns, area, f in [(1, 1.0, 1e6), (10, 0.48, 530e3), (7, 0.2, 1.7e6)]:
         lam = SPEED_OF_LIGHT / f
         h_e = effective_height_small_loop(area, f, turns)
@@ -51,7 +51,7 @@ def test_effective_height_relation():
 
 
 def test_directivity_from_the_pattern():
-    # REFERENCES §3 [mem + num]: pattern ∝ sin θ (θ from the loop axis), power ∝ sin² θ;
+    # docs/references.md §3 [mem + num]: pattern ∝ sin θ (θ from the loop axis), power ∝ sin² θ;
     # D = 4π / ∫ sin²θ dΩ = 1.5 = 1.761 dBi
     omega = integrate.quad(lambda t: np.sin(t) ** 2 * 2 * np.pi * np.sin(t), 0, np.pi)[0]
     assert DIRECTIVITY_SMALL_LOOP == pytest.approx(4 * np.pi / omega, abs=0.0, rel=1e-12)
@@ -59,7 +59,7 @@ def test_directivity_from_the_pattern():
 
 
 def test_validity_warning_above_a_tenth_wavelength():
-    # REFERENCES §3: valid for perimeter ≲ 0.1 λ. λ(1 MHz) = 299.8 m.
+    # docs/references.md §3: valid for perimeter ≲ 0.1 λ. λ(1 MHz) = 299.8 m.
     with pytest.warns(ValidityWarning, match="wavelengths"):
         radiation_resistance_small_loop(16.0, 1e6, 1, perimeter_m=32.0)
     with pytest.warns(ValidityWarning):

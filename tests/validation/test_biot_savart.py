@@ -1,6 +1,7 @@
 """On-axis fields of circular and rectangular filaments (Biot–Savart).
 
-Check values and marks from /work/shared/REFERENCES.md §2. The numerical references integrate
+Sources: the Biot–Savart law (Jackson 1999, ch. 5) and reciprocity; check values and marks in
+docs/references.md §2 (rod permeability §6). The numerical references integrate
 the Biot–Savart law dB = μ0 I dl × R / (4π R³) along the wire directly.
 """
 
@@ -27,9 +28,9 @@ def biot_savart_polyline_axial(corners, point, current=1.0):
 
 
 @pytest.mark.parametrize("z, expected_ut", [
-    (0.0, 1.554921),  # REFERENCES §2, 1.0 × 0.6 m rectangle, I = 1 A [calc]
-    (0.2, 1.084345),  # REFERENCES §2 [calc]
-    (1.0, 0.089018),  # REFERENCES §2 [calc]
+    (0.0, 1.554921),  # docs/references.md §2, 1.0 × 0.6 m rectangle, I = 1 A [calc]
+    (0.2, 1.084345),  # docs/references.md §2 [calc]
+    (1.0, 0.089018),  # docs/references.md §2 [calc]
 ])
 def test_rectangle_check_values(z, expected_ut):
     assert field_on_axis_rectangle(1.0, 0.6, z, 1.0) * 1e6 == pytest.approx(expected_ut,
@@ -71,16 +72,16 @@ def test_square_far_field_is_a_dipole_of_the_same_area():
 
 
 @pytest.mark.parametrize("z, expected_uh", [
-    (0.0, 3.1267),   # REFERENCES §2, loop-to-rod mutual inductance, small-coil limit [calc]
-    (0.25, 2.3583),  # REFERENCES §2 [calc]
-    (0.5, 1.2765),   # REFERENCES §2 [calc]
-    (1.0, 0.3610),   # REFERENCES §2 [calc]
+    (0.0, 3.1267),   # docs/references.md §2, loop-to-rod mutual inductance, small-coil limit [calc]
+    (0.25, 2.3583),  # docs/references.md §2 [calc]
+    (0.5, 1.2765),   # docs/references.md §2 [calc]
+    (1.0, 0.3610),   # docs/references.md §2 [calc]
 ])
 def test_loop_to_rod_example(z, expected_uh):
     # 10-turn 1 m square loop (turns taken coincident), coaxial rod 10 × 100 mm with 80 turns.
     # M = μ0 μ_rod N_rod A_rod (H/I) with H from the on-axis rectangle field. μ_rod = 43.98 is
     # printed rounded; it is μ_i = 400 with the prolate-spheroid demagnetising factor of
-    # REFERENCES §6 (Osborn 1945, m = 10), evaluated here unrounded (43.9845).
+    # docs/references.md §6 (Osborn 1945, m = 10), evaluated here unrounded (43.9847).
     m = 10.0
     root = np.sqrt(m**2 - 1)
     n_d = ((m / root) * np.log(m + root) - 1) / (m**2 - 1)

@@ -1,6 +1,7 @@
 """Copper resistivity (IEC 60028), skin depth and the exact round-wire AC resistance.
 
-Check values and marks from /work/shared/REFERENCES.md §4.
+Sources: IEC 60028, ASTM B258, the Bessel-function skin-effect solution (Ramo, Whinnery, Van Duzer);
+check values and marks in docs/references.md §4.
 """
 
 import warnings
@@ -25,7 +26,7 @@ RHO = RESISTIVITY_COPPER_IEC60028
 
 
 def awg_diameter_m(n):
-    # ASTM B258, REFERENCES §4 [src secondary]: d = 0.127 mm · 92^((36 − n)/39)
+    # ASTM B258, docs/references.md §4 [src secondary]: d = 0.127 mm · 92^((36 − n)/39)
     return 0.127e-3 * 92 ** ((36 - n) / 39)
 
 
@@ -39,7 +40,7 @@ def kelvin_ratio(radius, frequency, rho):
 
 
 def test_iec60028_constants():
-    # REFERENCES §4 [src secondary]: ρ20 = 1/58 Ω·mm²/m = 1.7241e-8 Ω·m, α20 = 3.93e-3 /K
+    # docs/references.md §4 [src secondary]: ρ20 = 1/58 Ω·mm²/m = 1.7241e-8 Ω·m, α20 = 3.93e-3 /K
     assert RHO == pytest.approx(1.7241e-8, abs=5e-13)
     assert ALPHA_COPPER_IEC60028 == 3.93e-3
     assert resistivity_copper() == RHO
@@ -48,8 +49,8 @@ def test_iec60028_constants():
 
 
 @pytest.mark.parametrize("f, expected_um", [
-    (530e3, 90.775),  # REFERENCES §4 copper skin depth [calc]
-    (1e6, 66.085),    # REFERENCES §4 [calc]
+    (530e3, 90.775),  # docs/references.md §4 copper skin depth [calc]
+    (1e6, 66.085),    # docs/references.md §4 [calc]
 ])
 def test_skin_depth_check_values(f, expected_um):
     assert skin_depth(RHO, f) * 1e6 == pytest.approx(expected_um, abs=5e-4)
@@ -62,9 +63,9 @@ def test_skin_depth_scaling():
 
 
 @pytest.mark.parametrize("gauge, expected_ratio, expected_mohm_per_m", [
-    (14, 6.41523, 53.15),   # REFERENCES §4, copper 20 °C, 1 MHz [calc]
-    (20, 3.33598, 111.12),  # REFERENCES §4 [calc]
-    (24, 2.20594, None),    # REFERENCES §4 [calc]
+    (14, 6.41523, 53.15),   # docs/references.md §4, copper 20 °C, 1 MHz [calc]
+    (20, 3.33598, 111.12),  # docs/references.md §4 [calc]
+    (24, 2.20594, None),    # docs/references.md §4 [calc]
 ])
 def test_round_wire_check_values(gauge, expected_ratio, expected_mohm_per_m):
     a = awg_diameter_m(gauge) / 2
@@ -75,14 +76,14 @@ def test_round_wire_check_values(gauge, expected_ratio, expected_mohm_per_m):
 
 
 def test_awg_diameters_used_above():
-    # REFERENCES §4 [calc]: 14 → 1.6277 mm; 20 → 0.8118; 24 → 0.5106
+    # docs/references.md §4 [calc]: 14 → 1.6277 mm; 20 → 0.8118; 24 → 0.5106
     for n, d_mm in [(14, 1.6277), (18, 1.0237), (20, 0.8118), (22, 0.6438), (24, 0.5106)]:
         assert awg_diameter_m(n) * 1e3 == pytest.approx(d_mm, abs=5e-5)
 
 
 @pytest.mark.parametrize("a_over_delta", [0.05, 0.3, 1.0, 2.0, 3.7, 8.0, 20.0])
 def test_bessel_ratio_equals_kelvin_functions(a_over_delta):
-    # REFERENCES §4 [num]: Kelvin functions give the same ratio. Tolerance 1e-9: scipy's
+    # docs/references.md §4 [num]: Kelvin functions give the same ratio. Tolerance 1e-9: scipy's
     # ber/bei/berp/beip are themselves off by 1.1e-10 relative near x = 11 (a/δ = 8), as the
     # exact-arithmetic series below shows (the Bessel form is right to 2e-16 there).
     f = 1e6

@@ -1,6 +1,6 @@
 """MW broadcast band plans against the ITU Radio Regulations, article 5.
 
-Values and marks from /work/shared/REFERENCES.md §7: Regions 1 and 3, carriers every 9 kHz from 531
+Sources: ITU Radio Regulations art. 5; values and marks in docs/references.md §7: Regions 1 and 3, carriers every 9 kHz from 531
 to 1602 kHz [src secondary]; Region 2, 10 kHz spacing [src secondary], carriers 530–1700 kHz [mem].
 """
 
@@ -19,8 +19,10 @@ def test_regions_1_and_3():
         assert p.frequencies_hz.size == 120
         assert np.diff(p.frequencies_hz) == pytest.approx(np.full(119, 9e3))
         assert p.audio_hz == 4.5e3  # half the spacing, common practice
-    # The band edges 526.5–1606.5 kHz lie half a channel outside the first and last carriers.
-    assert 531e3 - 4.5e3 == 526.5e3 and 1602e3 + 4.5e3 == 1606.5e3
+        # The allocated band 526.5–1606.5 kHz [published, secondary] is exactly filled by the
+        # channels: half a spacing below the first carrier and above the last.
+        assert p.frequencies_hz[0] - p.spacing_hz / 2 == pytest.approx(526.5e3, rel=1e-12, abs=0)
+        assert p.frequencies_hz[-1] + p.spacing_hz / 2 == pytest.approx(1606.5e3, rel=1e-12, abs=0)
     assert np.array_equal(band_plan("itu-1").frequencies_hz, band_plan("itu-3").frequencies_hz)
 
 
@@ -34,3 +36,6 @@ def test_region_2():
     assert p.audio_hz == 5e3
     # Every carrier a multiple of 10 kHz.
     assert np.allclose(p.frequencies_hz % 10e3, 0.0, atol=1e-6)
+    # The Region 2 band 525–1705 kHz [from memory] is filled the same way.
+    assert p.frequencies_hz[0] - p.spacing_hz / 2 == pytest.approx(525e3, rel=1e-12, abs=0)
+    assert p.frequencies_hz[-1] + p.spacing_hz / 2 == pytest.approx(1705e3, rel=1e-12, abs=0)

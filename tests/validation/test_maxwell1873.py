@@ -1,6 +1,7 @@
 """Coaxial circular filaments (Maxwell, *Treatise*, 1873, art. 701; Grover 1946).
 
-Check values and marks from /work/shared/REFERENCES.md §2.
+Sources: Maxwell 1873 art. 701, Neumann's formula by quadrature; check values and marks in
+docs/references.md §2.
 """
 
 import numpy as np
@@ -23,8 +24,8 @@ def neumann_circles_numerical(a, b, d, points=2**17):
 
 
 @pytest.mark.parametrize("a, b, d, expected_nh", [
-    (0.1, 0.1, 0.05, 111.26109),  # REFERENCES §2, Maxwell 1873 art. 701 [calc]
-    (0.2, 0.1, 0.1, 69.87325),    # REFERENCES §2 [calc]
+    (0.1, 0.1, 0.05, 111.26109),  # docs/references.md §2, Maxwell 1873 art. 701 [calc]
+    (0.2, 0.1, 0.1, 69.87325),    # docs/references.md §2 [calc]
 ])
 def test_maxwell_check_values(a, b, d, expected_nh):
     m = mutual_inductance_coaxial_circles_maxwell1873(a, b, d)

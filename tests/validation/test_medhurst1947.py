@@ -1,6 +1,6 @@
 """Self-capacitance of single-layer solenoids (Medhurst, Wireless Engineer 24, 1947).
 
-Table and marks from /work/shared/REFERENCES.md §5: C[pF] = H·D[cm] [src secondary].
+Sources: Medhurst 1947; table and marks in docs/references.md §5: C[pF] = H·D[cm] [src secondary].
 """
 
 import warnings
@@ -11,7 +11,7 @@ import pytest
 from simloop.errors import ValidityWarning
 from simloop.reference import self_capacitance_medhurst1947
 
-TABLE = [  # REFERENCES §5, (l/D, H) [src secondary]; "0.8–1.0: 0.46" entered as two points
+TABLE = [  # docs/references.md §5, (l/D, H) [src secondary]; "0.8–1.0: 0.46" entered as two points
     (0.1, 0.96), (0.2, 0.70), (0.3, 0.60), (0.5, 0.50), (0.8, 0.46), (1.0, 0.46), (2.0, 0.50),
     (3.0, 0.61), (5.0, 0.81), (10.0, 1.32),
 ]
@@ -50,7 +50,7 @@ def test_warns_and_extrapolates_outside_the_table():
 
 
 def test_box_loop_extrapolation_example():
-    # REFERENCES §5 [calc]: for a 1 m, 10-turn, 10 mm pitch box loop "extrapolated Medhurst
+    # docs/references.md §5 [calc]: for a 1 m, 10-turn, 10 mm pitch box loop "extrapolated Medhurst
     # gives ~100 pF" (MoM: 23.4 pF, so the table is not for such loops). Winding length
     # (N − 1)·pitch = 90 mm, D = 1 m: l/D = 0.09, just outside the table.
     with pytest.warns(ValidityWarning):

@@ -1,6 +1,7 @@
 """The MoM sweep against published formulas and the quasi-static partial-inductance model.
 
-Check values are computed from the formulas named beside them (REFERENCES.md marks them [calc]).
+Sources: Terman 1943, Grover 1946, Balanis 2016 (docs/references.md §1, §3). Check values are
+computed from the formulas named beside them (docs/references.md marks them [computed]).
 """
 
 import textwrap
@@ -41,7 +42,7 @@ def single_turn():
 
 def test_single_turn_inductance_matches_terman(single_turn):
     # Terman, Radio Engineers' Handbook (1943) sec. 2 / Grover (1946): 1.0 x 0.6 m rectangle of
-    # 2 mm wire, high frequency: 3.74570 uH [REFERENCES §1, calc]. The model also carries the tuner
+    # 2 mm wire, high frequency: 3.74570 uH [docs/references.md §1, calc]. The model also carries the tuner
     # lead detour (5 cm drop, run and collector); its increment is taken from Grover's partial
     # inductances of the same pieces, so the check is Terman + lead increment.
     terman = reference.inductance_rectangle_terman1943(1.0, 0.6, 2e-3)
@@ -51,6 +52,8 @@ def test_single_turn_inductance_matches_terman(single_turn):
     corners = np.array([(-0.5, 0, -0.3), (0.5, 0, -0.3), (0.5, 0, 0.3), (-0.5, 0, 0.3)])
     closed = reference.inductance_partial_sum(corners, np.roll(corners, -1, axis=0), geom.wire_radius_m)
     expected = terman + (path - closed)
+    # Measured +1.05 % (cause not isolated: 2 mm wire at 15 mm segments, Δ/a = 15, near the
+    # thin-wire kernel's limit of 8 from Burke & Poggio 1981, docs/references.md §9); 1.5 % holds it.
     assert single_turn.inductance_h[0] == pytest.approx(expected, rel=0.015, abs=0)
 
 
@@ -64,17 +67,22 @@ def test_single_turn_radiation_resistance_matches_small_loop_law(single_turn):
     assert np.all(2 * (1.0 + 0.6) < 0.1 * reference.SPEED_OF_LIGHT / f)
     r_law = reference.radiation_resistance_small_loop(area, f)
     r_mom = single_turn.z_ohm[mom, 0, 0].real
-    assert np.allclose(r_mom, r_law, rtol=0.10, atol=0)
+    # Measured +1.2 to +1.4 %. 2 %, the same window validate's R_rad rows are held to
+    # (tests/test_validation.py); the law's own constant is 0.07 % high (η0 = 120π, §3).
+    assert np.allclose(r_mom, r_law, rtol=0.02, atol=0)
 
 
 def test_model_points_carry_the_law_below_the_floor(single_turn):
     # Below the floor the resistance comes from the fitted f^4 law: it must stay on Balanis' line.
+    # Measured +4.8 to +4.9 %, i.e. 3.5 % above the direct MoM points (cause not yet found; noted
+    # in docs/notes/engineering.md). 6 % holds today's value and still catches a worse fit; the
+    # direct points above are held to 2 %.
     model = single_turn.source == "model"
     assert model.any()
     area = float(single_turn.geometry.turn_area_m2()[0])
     f = single_turn.frequencies_hz[model]
     r_law = reference.radiation_resistance_small_loop(area, f)
-    assert np.allclose(single_turn.z_ohm[model, 0, 0].real, r_law, rtol=0.10, atol=0)
+    assert np.allclose(single_turn.z_ohm[model, 0, 0].real, r_law, rtol=0.06, atol=0)
 
 
 @pytest.fixture(scope="module", params=["small-stacked", "small-spiral"])
@@ -93,10 +101,11 @@ def _ratio(result, tap_index):
 
 def test_every_tap_matches_partial_inductance_sum(multi_turn):
     # Quasi-static partial-inductance sum (Grover 1946 filaments) over the real winding path with
-    # its leads: the reported L0 of every tap agrees within 4 % (the issue's tolerance). Mid-winding
-    # taps need the junction correction for it (below); the end tap needs none.
+    # its leads: measured +1.07 % / +0.03 % (stacked) and +0.90 % / −0.05 % (spiral) for the mid
+    # and end taps. 2 % is validate's "ok" threshold (L_OK). Mid-winding taps need the junction
+    # correction for it (below); the end tap needs none.
     for i in range(len(multi_turn.tap_turns)):
-        assert abs(_ratio(multi_turn, i) - 1) < 0.04, multi_turn.tap_turns[i]
+        assert abs(_ratio(multi_turn, i) - 1) < 0.02, multi_turn.tap_turns[i]
     assert multi_turn.junction_correction[-1] == 1.0
 
 
@@ -141,12 +150,6 @@ def test_mid_tap_bias_is_the_open_stub_at_the_tap_junction():
     attached, free = ratios
     assert abs(free - 1) < 0.005, "without the open stub the MoM agrees with the quasi-static sum"
     assert attached - 1 > 0.01, "with the open stub attached the MoM reads high (junction bias)"
-
-
-def test_inductance_error_covers_the_distance_to_the_quasi_static_model(multi_turn):
-    # The sweep never claims an inductance error smaller than the distance to the quasi-static sum.
-    for i in range(len(multi_turn.tap_turns)):
-        assert multi_turn.inductance_error[i] >= abs(_ratio(multi_turn, i) - 1)
 
 
 def test_more_turns_tune_lower(multi_turn):

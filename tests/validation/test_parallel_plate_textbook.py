@@ -1,6 +1,6 @@
 """The sliding-plate tuner against the textbook parallel-plate law C = ε0 ε_r A/d.
 
-The law is in every electromagnetism textbook (e.g. Terman, *Radio Engineers' Handbook*, 1943,
+Sources: the law is in every electromagnetism textbook (e.g. Terman, *Radio Engineers' Handbook*, 1943,
 sec. 2 [mem for the section]); it neglects fringing. ε0 = 8.8541878128e-12 F/m is CODATA 2018; the
 code derives ε0 from μ0 = 4π·10⁻⁷ H/m and c, 8.854187817e-12 F/m, 6e-10 away.
 """

@@ -1,6 +1,6 @@
 """Proximity effect of closely wound turns (G. S. Smith, IEEE Trans. AP-20, 1972).
 
-The table is /work/shared/REFERENCES.md §4: values computed there with the same 2-D model
+Sources: Smith 1972, Miron 2006. The table is docs/references.md §4: values computed there with the same 2-D model
 (perfect-conductor limit, coplanar wires, c/a = half spacing / wire radius) [calc]. The method is
 confirmed via Miron, *Small Antenna Design* (2006), app. D [src]; Smith's own printed table is
 NOT confirmed, so it is not used here.
@@ -14,7 +14,7 @@ from simloop.reference import proximity_factor_smith1972, proximity_factor_two_w
 from simloop.reference import _proximity_coefficients  # internal: to check the boundary condition
 
 SPACINGS = (1.2, 1.5, 2.0, 3.0, 4.0)
-TABLE = {  # REFERENCES §4, R_p/R_0 [calc], printed to 3 decimals
+TABLE = {  # docs/references.md §4, R_p/R_0 [calc], printed to 3 decimals
     2: (0.268, 0.192, 0.116, 0.054, 0.031),
     4: (0.777, 0.469, 0.252, 0.106, 0.058),
     6: (1.210, 0.658, 0.330, 0.133, 0.072),

@@ -1,7 +1,8 @@
 """Single-turn rectangle (Terman, *Radio Engineers' Handbook*, 1943, sec. 2; Grover 1946), the
 circle (Rosa/Grover), and Q / bandwidth relations (Terman 1943, sec. 3).
 
-Check values and marks from /work/shared/REFERENCES.md §1.
+Sources: Terman 1943, Grover 1946, Rosa 1908; check values and marks in docs/references.md §1 and
+§14.
 """
 
 import numpy as np
@@ -26,9 +27,9 @@ def rectangle_pieces(a, b):
 
 
 @pytest.mark.parametrize("a, b, d, expected_uh", [
-    (1.0, 1.0, 2e-3, 4.90779),  # REFERENCES §1, Terman 1943 sec. 2 [calc]
-    (1.0, 0.6, 2e-3, 3.74570),  # REFERENCES §1 [calc]
-    (0.5, 0.5, 1e-3, 2.45390),  # REFERENCES §1 [calc]
+    (1.0, 1.0, 2e-3, 4.90779),  # docs/references.md §1, Terman 1943 sec. 2 [calc]
+    (1.0, 0.6, 2e-3, 3.74570),  # docs/references.md §1 [calc]
+    (0.5, 0.5, 1e-3, 2.45390),  # docs/references.md §1 [calc]
 ])
 def test_terman_rectangle_check_values(a, b, d, expected_uh):
     # printed to 10 pH: half a unit of the last digit
@@ -38,7 +39,7 @@ def test_terman_rectangle_check_values(a, b, d, expected_uh):
 @pytest.mark.parametrize("a, b, d", [(1.0, 1.0, 2e-3), (1.0, 0.6, 2e-3), (0.5, 0.5, 1e-3),
                                      (0.8, 0.2, 0.8e-3), (0.05, 0.03, 1e-3)])
 def test_partial_sum_of_one_rectangle_equals_terman(a, b, d):
-    # REFERENCES §1: "Equals the partial-inductance sum" [src secondary + num]. Terman replaces
+    # docs/references.md §1: "Equals the partial-inductance sum" [src secondary + num]. Terman replaces
     # asinh(l/r) by ln(2l/r) and √(l²+r²) by l in the self terms: relative error O((d/a)²).
     starts, ends = rectangle_pieces(a, b)
     exact = inductance_partial_sum(starts, ends, d / 2, model="hf")
@@ -62,9 +63,9 @@ def test_dc_adds_internal_inductance_of_the_perimeter():
         assert extra_ps == pytest.approx(0.1e-6 * (a + b) + r_terms, abs=0.0, rel=1e-6)
 
 
-@pytest.mark.xfail(strict=True, reason="REFERENCES §1 says the DC value is 0.2(a+b) µH larger; "
+@pytest.mark.xfail(strict=True, reason="a summary we once used said the DC value is 0.2(a+b) µH larger; "
                    "the internal inductance μ0/(8π) per metre over the perimeter 2(a+b) gives "
-                   "0.1(a+b) µH, and the dc partial sum agrees with 0.1(a+b)")
+                   "0.1(a+b) µH, and the dc partial sum agrees with 0.1(a+b) (docs/references.md §1)")
 def test_references_dc_statement_0p2_a_plus_b():
     a, b, d = 1.0, 0.6, 2e-3
     starts, ends = rectangle_pieces(a, b)
@@ -76,7 +77,7 @@ def test_references_dc_statement_0p2_a_plus_b():
 # --- circle (Rosa / Grover) ------------------------------------------------------------------
 
 def test_rosa_circle_check_value():
-    # REFERENCES §1: b = 0.5 m, r = 1 mm → 3.95467 µH (HF) [calc]; formula [mem]
+    # docs/references.md §1: b = 0.5 m, r = 1 mm → 3.95467 µH (HF) [calc]; formula [mem]
     assert inductance_circle_rosa(0.5, 1e-3, "hf") * 1e6 == pytest.approx(3.95467, abs=5e-6)
 
 

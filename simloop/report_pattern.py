@@ -1,0 +1,158 @@
+"""The pattern report: ``pattern.json``, ``pattern.png`` and the printed null list.
+
+Causes and notes arrive from :mod:`simloop.patterns` as codes with numbers; they are worded here.
+The figure is drawn on a :class:`matplotlib.figure.Figure` with the Agg canvas directly, so
+importing this module never changes a notebook's matplotlib backend.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from simloop.mesh import C0
+from simloop.patterns import DEPTH_FLOOR_DB, PatternResult
+from simloop.report import _pairs, write_json
+
+#: The figure's dB floor: the rings run from here to 0 dB. [dB]
+PLOT_FLOOR_DB = -40.0
+
+#: Line styles distinguishable in grey print: (line style, grey level, width, null marker).
+STYLES = {"loop": ("-", "0.0", 1.8, "v"), "receiver": ("--", "0.45", 1.3, "^"), "system": (":", "0.25", 2.0, "s")}
+LABELS = {"loop": "loop (voltage on the tuned capacitor)", "receiver": "radio's rod alone", "system": "loop + radio"}
+
+MODELS = {
+    "mom": "NEC (method of moments)",
+    "mom-below-floor": "NEC below its breakdown floor: currents, and so null depths, suspect",
+    "dipole": "the rod as a small magnetic dipole (analytic)",
+    "circuit": "the circuit solver's dipole moments (quasi-static, no breakdown floor)",
+}
+
+
+def cause_text(null) -> str:
+    """One line saying what limits a null's depth."""
+    d = null.detail
+    if null.cause == "electric-dipole":
+        return (f"electric-dipole filling (antenna effect of leads and tuner): e = {d['e']:.3g}, "
+                f"law 20·log10(e/√(1+e²)) = {d['law_db']:.1f} dB; without it {d['without_electric_db']:.1f} dB")
+    if null.cause == "beyond-dipole":
+        return (f"the field beyond the two dipoles (finite size, lead geometry); "
+                f"without it {d['without_rest_db']:.1f} dB (electric term e = {d['e']:.3g})")
+    if null.cause == "combined":
+        return (f"electric dipole (e = {d['e']:.3g}) and the field beyond the dipoles together "
+                f"(removing either alone: {d['without_electric_db']:.1f} / {d['without_rest_db']:.1f} dB)")
+    if null.cause == "exact":
+        return f"an exact zero of the model (deeper than {-DEPTH_FLOOR_DB:.0f} dB): nothing in it fills this null"
+    if null.cause == "not-split":
+        return "not split into causes over a ground (the dipole split needs the free-space sphere)"
+    return null.cause
+
+
+def note_text(code: str) -> str:
+    kind, _, value = code.partition(":")
+    if kind == "below-floor":
+        return (f"the pattern frequency lies below NEC's breakdown floor of this mesh ({float(value) / 1e6:.3g} MHz): "
+                "its currents and so its null depths are suspect (the circuit solver's dipole moments will "
+                "replace them there)")
+    if kind == "horizontal-at-horizon":
+        return ("a horizontally polarised wave at the horizon does not couple to the loop's magnetic moment: "
+                "the loop's response there is its antenna effect alone")
+    if kind == "efficiency":
+        return f"power check passed: radiated / input power of the tap = {float(value):.3g}"
+    if kind == "ground":
+        return (f"{value} ground: relative field patterns (the input power of such loops over ground is near "
+                "the solver's resolution); null causes not split")
+    return code
+
+
+def pattern_dict(result: PatternResult) -> dict:
+    """Everything in ``pattern.json`` (keys carry units)."""
+    m, p = result.magnetic_moment, result.electric_moment
+    e_ratio = float(C0 * np.linalg.norm(p) / np.linalg.norm(m)) if np.all(np.isfinite(m)) else float("nan")
+    return {
+        "frequency_hz": result.frequency_hz,
+        "polarization": result.polarization,
+        "azimuth_deg": result.azimuth_deg.tolist(),
+        "elevation_deg": result.elevation_deg.tolist(),
+        "response_db": {k: v.tolist() for k, v in result.response_db.items()},
+        "models": {k: MODELS.get(v, v) for k, v in result.models.items()},
+        "tap": result.tap_turns,
+        "capacitance_f": result.capacitance_f,
+        "loop_volts_per_v_m": result.loop_volts_per_v_m,
+        "nulls": [{"azimuth_deg": n.azimuth_deg, "elevation_deg": n.elevation_deg, "depth_db": n.depth_db,
+                   "of": n.of, "cause": n.cause, "cause_text": cause_text(n), "detail": n.detail}
+                  for n in result.nulls],
+        "dipole": {"magnetic_moment_a_m2": _pairs(m), "electric_moment_c_m": _pairs(p),
+                   "electric_over_magnetic": e_ratio, "multipole_residual": result.multipole_residual},
+        "floor_hz": result.floor_hz,
+        "notes": [note_text(c) for c in result.notes],
+    }
+
+
+def format_pattern_summary(result: PatternResult) -> str:
+    """The printed summary: each null with its depth and cause."""
+    lines = [f"pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
+             f"tap {result.tap_turns} tuned with {result.capacitance_f * 1e12:.1f} pF "
+             f"(at the maximum {result.loop_volts_per_v_m:.3g} V on the capacitor per V/m of field)"]
+    for name, model in result.models.items():
+        lines.append(f"  {name}: {MODELS.get(model, model)}")
+    for n in sorted(result.nulls, key=lambda n: (n.of, n.elevation_deg, n.azimuth_deg)):
+        depth = f"{n.depth_db:7.1f} dB" if n.depth_db > DEPTH_FLOOR_DB else "  exact   "
+        lines.append(f"  null of {n.of:<8} at azimuth {n.azimuth_deg:6.2f}°, elevation {n.elevation_deg:4.1f}°: "
+                     f"{depth} — {cause_text(n)}")
+    lines += [f"  note: {note_text(c)}" for c in result.notes]
+    return "\n".join(lines)
+
+
+def plot_pattern(result: PatternResult, path: Path) -> Path:
+    """Polar plots, one panel per elevation: dB rings, nulls marked with their depth."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    n = result.elevation_deg.size
+    fig = Figure(figsize=(max(5.2 * n, 6.5), 6.0), constrained_layout=True)
+    FigureCanvasAgg(fig)
+    phi = np.radians(np.append(result.azimuth_deg, result.azimuth_deg[0] + 360.0))
+    span = -PLOT_FLOOR_DB
+    for i, el in enumerate(result.elevation_deg):
+        ax = fig.add_subplot(1, n, i + 1, projection="polar")
+        for name, db in result.response_db.items():
+            ls, grey, lw, _ = STYLES[name]
+            r = np.maximum(np.append(db[i], db[i][0]), PLOT_FLOOR_DB) + span
+            ax.plot(phi, r, ls=ls, color=grey, lw=lw, label=LABELS[name])
+        _mark_nulls(ax, [x for x in result.nulls if x.elevation_deg == el], span)
+        ax.set_ylim(0, span)
+        ax.set_rlabel_position(202.5)
+        ax.set_yticks(np.arange(10.0, span + 1, 10.0))
+        ax.set_yticklabels([f"{t - span:.0f} dB" for t in np.arange(10.0, span + 1, 10.0)], fontsize=7)
+        ax.set_xticks(np.radians(np.arange(0, 360, 45)))
+        ax.set_xticklabels(["0° (loop plane, +x)", "45°", "90° (axis, +y)", "135°", "180°", "225°", "270°", "315°"],
+                           fontsize=7)
+        ax.set_title(f"elevation {el:g}°", fontsize=10)
+        if i == 0:
+            ax.legend(loc="lower left", bbox_to_anchor=(-0.1, -0.16), fontsize=7, frameon=False)
+    fig.suptitle(f"Receive pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
+                 f"tap {result.tap_turns}\neach response relative to its own maximum", fontsize=10)
+    fig.savefig(path, dpi=110)
+    return path
+
+
+def _mark_nulls(ax, nulls, span: float) -> None:
+    for x in nulls:
+        _, grey, _, marker = STYLES[x.of]
+        r = max(x.depth_db, PLOT_FLOOR_DB) + span
+        a = np.radians(x.azimuth_deg)
+        ax.plot([a], [r], marker=marker, color=grey, mfc="white" if x.of != "loop" else grey, ms=7, ls="none")
+        text = f"{x.of} null {x.depth_db:.1f} dB" if x.depth_db > DEPTH_FLOOR_DB else f"{x.of} null: exact"
+        side = 1 if x.of == "loop" else -1
+        ax.annotate(text, (a, r), xytext=(a + side * np.radians(14), 0.62 * span), fontsize=7, color=grey,
+                    ha="center", bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
+                    arrowprops={"arrowstyle": "-", "color": grey, "lw": 0.6})
+
+
+def write_pattern(result: PatternResult, out: Path) -> list[Path]:
+    """``pattern.json`` and ``pattern.png`` into ``out`` (created)."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    return [write_json(out / "pattern.json", pattern_dict(result)), plot_pattern(result, out / "pattern.png")]
