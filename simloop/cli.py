@@ -395,6 +395,8 @@ def cmd_explore(args) -> int:
     base = tomllib.loads(Path(args.spec).read_text(encoding="utf-8-sig"))
     axes = ex.parse_vary(args.vary, base, sampled=args.samples is not None)
     band_plan(args.band)
+    if args.objective == "boost" and spec.receiver is None:
+        raise SpecError("--objective", "boost needs a [receiver] in the spec (the radio the loop is coupled to)")
     if args.samples is not None:
         designs = ex.designs_sample(base, spec.name, axes, args.band, args.samples, args.seed)
     else:

@@ -18,8 +18,8 @@ rerun can skip every design already finished and, through the shared solve cache
 frequency already solved.
 
 The row builder is a list of column functions (:data:`COLUMNS`), each ``f(spec, sweep, tune) →
-dict``; a new figure of merit (such as the boost of a coupled receiver) is one more function in
-that list.
+dict``; a new figure of merit is one more function in that list (the boost at the radio's rod,
+:func:`boost_columns`, is one) and, to rank by it, one entry in :data:`OBJECTIVES`.
 """
 
 from __future__ import annotations
@@ -60,7 +60,7 @@ __all__ = [
 ]
 
 #: Version of the row layout; part of the design hash, so a changed row is recomputed.
-ROW_VERSION = "explore-row-2"
+ROW_VERSION = "explore-row-3"
 #: Largest number of designs one exploration may ask for (grid or sample).
 MAX_DESIGNS = 10000
 #: Why a design task cannot run in a daemonic worker, and what to do.
@@ -500,13 +500,33 @@ def verdict_columns(spec, sweep, tune) -> dict:
             "segments": int(sweep.mesh.n_segments)}
 
 
+def boost_columns(spec, sweep, tune) -> dict:
+    """Boost of the tuned loop at the radio's rod (:func:`simloop.coupling.run_couple`) at the
+    band's bottom, middle and top channel, and the median over the tuned channels; only when the
+    spec has a ``[receiver]`` (no columns otherwise). [dB]
+
+    The placement map of ``run_couple`` is not used here, so it runs on its coarsest grid.
+    """
+    if spec.receiver is None:
+        return {}
+    from simloop.coupling import run_couple
+
+    couple = run_couple(spec, sweep, tune, map_points=3)
+    db = np.asarray(couple.boost_db, dtype=float)
+    m = db.size
+    out = {f"boost_{where}_db": _finite(db[j]) for where, j in (("bottom", 0), ("middle", m // 2), ("top", m - 1))}
+    ok = db[np.isfinite(db)]
+    out["boost_median_db"] = _finite(np.median(ok)) if ok.size else None
+    return out
+
+
 def budget_columns(spec, sweep, tune) -> dict:
     """The sweep's factorisations by role (:func:`solve_budget`)."""
     return {"solves": solve_budget(sweep).as_dict()}
 
 
 #: The row builder: each function maps (spec, sweep, tune) to columns of the design's row.
-COLUMNS = [coverage_columns, q_columns, verdict_columns, budget_columns]
+COLUMNS = [coverage_columns, q_columns, boost_columns, verdict_columns, budget_columns]
 
 #: Objectives a design can be ranked by (``--objective``): its column, and what it means. A
 #: column function added to :data:`COLUMNS` becomes an objective with one entry here; the Pareto
@@ -514,6 +534,7 @@ COLUMNS = [coverage_columns, q_columns, verdict_columns, budget_columns]
 OBJECTIVES = {
     "coverage": ("coverage", "share of the band's channels tuned [-]"),
     "q": ("q_median", "median loaded Q over the tuned channels [-]"),
+    "boost": ("boost_median_db", "median boost at the radio over the tuned channels [dB]"),
 }
 
 

@@ -86,7 +86,7 @@ def _khz(x):
     return None if x is None else round(x / 1e3, 3)
 
 
-def _csv_record(rec: dict, axes) -> dict:
+def _csv_record(rec: dict, axes, boost: bool = False) -> dict:
     s = rec.get("solves") or {}
     out = {"design": rec["design"]}
     for a in axes:
@@ -103,6 +103,9 @@ def _csv_record(rec: dict, axes) -> dict:
         out[f"q_{where}"] = None if q is None else round(q, 1)
         out[f"bandwidth_{where}_khz"] = _khz(rec.get(f"bandwidth_{where}_hz"))
     out["q_median"] = None if rec.get("q_median") is None else round(rec["q_median"], 1)
+    if boost:
+        for key in ("boost_bottom_db", "boost_middle_db", "boost_top_db", "boost_median_db"):
+            out[key] = None if rec.get(key) is None else round(rec[key], 2)
     out["verdict"] = rec.get("verdict")
     srf = rec.get("self_resonance_hz")
     out["self_resonance_mhz"] = None if srf is None else round(srf / 1e6, 4)
@@ -116,7 +119,8 @@ def _csv_record(rec: dict, axes) -> dict:
 
 
 def write_csv(path, records, axes) -> Path:
-    rows = [_csv_record(r, axes) for r in records]
+    boost = any("boost_median_db" in r for r in records)
+    rows = [_csv_record(r, axes, boost) for r in records]
     path = Path(path)
     with open(path, "w", newline="") as fh:
         if rows:
@@ -198,7 +202,9 @@ def format_summary(records, axes, summ: dict, top: int = 5) -> str:
         q = r.get("q_median")
         q_text = "—" if q is None else f"{q:.0f}"
         gap = f", gap {r['gap_hz'] / 1e3:.0f} kHz" if r["gaps_hz"] else ""
-        lines.append(f"  {vals}: coverage {100 * r['coverage']:.1f} %, median Q {q_text}, "
+        b = r.get("boost_median_db")
+        boost = "" if b is None else f", median boost {b:.1f} dB"
+        lines.append(f"  {vals}: coverage {100 * r['coverage']:.1f} %, median Q {q_text}{boost}, "
                      f"{r['verdict']}{gap}")
     lines.append(f"Pareto front (coverage against {_short(summ['pareto_against'])}): "
                  f"{len(summ['pareto'])} designs")
@@ -229,7 +235,7 @@ def _design_label(rec, axes) -> str:
 
 def _short(objective: str) -> str:
     """An objective's name in titles."""
-    return {"coverage": "band coverage", "q": "median loaded Q"}.get(objective, objective)
+    return {"coverage": "band coverage", "q": "median loaded Q", "boost": "median boost"}.get(objective, objective)
 
 
 def _integer_ticks(ax, *axes):

@@ -273,3 +273,35 @@ def test_unreachable_scheduler_exits_2(tmp_path, capsys):
     code = main(["explore", str(spec), *GRID, "--out", str(tmp_path / "o"), "--scheduler", "tcp://127.0.0.1:9"])
     assert code == 2
     assert "--scheduler" in capsys.readouterr().err
+
+
+RECEIVER = """
+[receiver]
+rod_length = "100 mm"
+rod_diameter = "10 mm"
+permeability = 125
+coil_turns = 60
+coil_length = "20 mm"
+loaded_q = 60
+position = ["0 m", "0.15 m", "-0.125 m"]
+"""
+
+
+def test_boost_columns_only_with_a_receiver(tmp_path, capsys):
+    spec = write_spec(tmp_path, TINY)
+    # Without a [receiver] there is nothing to boost: exit 2 before anything is solved.
+    assert main(["explore", str(spec), "--vary", "winding.turns=2:3", "--objective", "boost",
+                 "--out", str(tmp_path / "none")]) == 2
+    assert "--objective" in capsys.readouterr().err
+    assert not (tmp_path / "none").exists()
+    with_rod = write_spec(tmp_path, TINY + RECEIVER, name="rod.toml")
+    out = tmp_path / "rod"
+    assert main(["explore", str(with_rod), "--vary", 'frame.width="0.6 m":"0.8 m":2', "--objective", "boost",
+                 "--out", str(out), "--workers", "1", "--quiet"]) == 0
+    rows = _rows(out)
+    assert all(r["boost_median_db"] is not None for r in rows)
+    assert json.loads((out / "explore.json").read_text())["summary"]["pareto_against"] == "boost"
+    with open(out / "explore.csv") as fh:
+        assert "boost_median_db" in next(csv.DictReader(fh))
+    plain = evaluate_design(TINY, "itu-1")
+    assert not any(k.startswith("boost") for k in plain)
