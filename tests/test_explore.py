@@ -3,6 +3,12 @@ the same rows from a Dask LocalCluster as from the local process pool.
 
 Designs are tiny (2–4 turns, draft mesh, 5 sweep points) so that the whole file runs in well
 under a minute on two shared cores.
+
+Sources: Latin hypercube sampling, McKay, Beckman & Conover 1979 (docs/references.md, Explore);
+the Pareto front's definition (same place) on a hand-worked set; Python's tomllib (TOML 1.0.0) as
+the reader our spec writer must round-trip through; ASTM B258 for the 20 AWG diameter (0.812 mm)
+that makes a 0.5 mm pitch impossible; the solve cache's own entries as the independent count of
+factorisations; the local process pool's rows as the reference for the Dask cluster's.
 """
 
 from __future__ import annotations
