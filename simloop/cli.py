@@ -346,6 +346,59 @@ def cmd_demo(args) -> int:
     return cmd_study(args, spec=spec, source_text=text)
 
 
+def _split_top(text: str, sep: str) -> list[str]:
+    """Split on ``sep`` outside brackets and quotes."""
+    parts, depth, quote, cur = [], 0, "", ""
+    for ch in text:
+        if quote:
+            quote = "" if ch == quote else quote
+        elif ch in "\"'":
+            quote = ch
+        elif ch == "[":
+            depth += 1
+        elif ch == "]":
+            depth -= 1
+        elif ch == sep and depth == 0:
+            parts.append(cur)
+            cur = ""
+            continue
+        cur += ch
+    return [*parts, cur]
+
+
+def _toml_value(text: str):
+    """A TOML value (number, array, quoted string), or the bare text as a string."""
+    import tomllib
+
+    text = text.strip()
+    try:
+        return tomllib.loads(f"v = {text}")["v"]
+    except tomllib.TOMLDecodeError:
+        return text.strip("\"'")
+
+
+def parse_vary(texts, base: dict, sampled: bool = False):
+    """``--vary KEY=START:STOP[:COUNT]`` or ``KEY=V1,V2,...`` options → checked axes.
+
+    Each part is read as a TOML value (``8``, ``[3, 5, 7]``, ``"0.5 m"``) or else as bare text
+    (``0.5 m``, ``spiral``); :func:`simloop.explore.build_axes` checks them against the spec.
+    """
+    from simloop.explore import Vary, build_axes
+
+    varies = []
+    for text in texts:
+        key, eq, rest = text.partition("=")
+        if not eq or not rest.strip():
+            raise SpecError("--vary", f"{text!r} has no values; write KEY=START:STOP, KEY=START:STOP:COUNT "
+                                      f"or KEY=V1,V2,...")
+        ranges = _split_top(rest, ":")
+        if len(ranges) > 1:
+            varies.append(Vary(key.strip(), tuple(_toml_value(p) for p in ranges), True))
+        else:
+            varies.append(Vary(key.strip(), tuple(_toml_value(p) for p in _split_top(rest, ",") if p.strip()), False))
+    return build_axes(varies, base, sampled)
+
+
 def _explore_executor(args, n_designs: int):
     """A local process pool, or the executor of a running Dask cluster (checked before use);
     its description, and the function that closes it."""
@@ -393,7 +446,7 @@ def cmd_explore(args) -> int:
 
     spec = load(args.spec)
     base = tomllib.loads(Path(args.spec).read_text(encoding="utf-8-sig"))
-    axes = ex.parse_vary(args.vary, base, sampled=args.samples is not None)
+    axes = parse_vary(args.vary, base, sampled=args.samples is not None)
     band_plan(args.band)
     if args.objective == "boost" and spec.receiver is None:
         raise SpecError("--objective", "boost needs a [receiver] in the spec (the radio the loop is coupled to)")

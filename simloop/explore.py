@@ -29,7 +29,6 @@ import json
 import math
 import multiprocessing
 import time
-import tomllib
 from collections import Counter
 from concurrent.futures import as_completed
 from dataclasses import dataclass
@@ -53,7 +52,8 @@ __all__ = [
     "dump_toml",
     "evaluate_design",
     "objective_value",
-    "parse_vary",
+    "Vary",
+    "build_axes",
     "pareto_front",
     "run_designs",
     "solve_budget",
@@ -73,7 +73,7 @@ _VARY_RULE = ('write KEY=START:STOP (whole numbers, every value), KEY=START:STOP
 
 
 # --------------------------------------------------------------------------------------------
-# --vary: axes of the exploration
+# Axes of the exploration (the command line reads --vary into Vary; here they are checked)
 # --------------------------------------------------------------------------------------------
 
 @dataclass(frozen=True)
@@ -107,35 +107,6 @@ class Axis:
         return value if isinstance(value, str) else as_written(value)
 
 
-def _split_top(text: str, sep: str) -> list[str]:
-    """Split on ``sep`` outside brackets and quotes."""
-    parts, depth, quote, cur = [], 0, "", ""
-    for ch in text:
-        if quote:
-            quote = "" if ch == quote else quote
-        elif ch in "\"'":
-            quote = ch
-        elif ch == "[":
-            depth += 1
-        elif ch == "]":
-            depth -= 1
-        elif ch == sep and depth == 0:
-            parts.append(cur)
-            cur = ""
-            continue
-        cur += ch
-    return [*parts, cur]
-
-
-def _toml_value(text: str):
-    """A TOML value (number, array, quoted string), or the bare text as a string."""
-    text = text.strip()
-    try:
-        return tomllib.loads(f"v = {text}")["v"]
-    except tomllib.TOMLDecodeError:
-        return text.strip("\"'")
-
-
 def _quantity_kind(value: str) -> str | None:
     for kind in KINDS:
         try:
@@ -146,13 +117,13 @@ def _quantity_kind(value: str) -> str | None:
     return None
 
 
-def _range_axis(key: str, option: str, ends: list[str], base_value, sampled: bool) -> Axis:
-    a, b = _toml_value(ends[0]), _toml_value(ends[1])
+def _range_axis(key: str, option: str, ends: tuple, base_value, sampled: bool) -> Axis:
+    a, b = ends[0], ends[1]
     count = None
     if len(ends) == 3:
-        n = _toml_value(ends[2])
+        n = ends[2]
         if isinstance(n, bool) or not isinstance(n, int) or n < 2:
-            raise SpecError(option, f"{key}: COUNT must be a whole number ≥ 2, got {ends[2].strip()!r}; {_VARY_RULE}")
+            raise SpecError(option, f"{key}: COUNT must be a whole number ≥ 2, got {as_written(n)}; {_VARY_RULE}")
         count = n
     if all(isinstance(v, int) and not isinstance(v, bool) for v in (a, b)):
         if a >= b:
@@ -195,8 +166,7 @@ def _quantity_axis(key, option, a: str, b: str, count, sampled) -> Axis:
     return Axis(key, values, tuple(float(v) for v in si), si_unit, (lo, hi, unit, scale, kind))
 
 
-def _list_axis(key: str, parts: list[str]) -> Axis:
-    values = tuple(_toml_value(p) for p in parts)
+def _list_axis(key: str, values: tuple) -> Axis:
     numbers = []
     for v in values:
         if isinstance(v, (int, float)) and not isinstance(v, bool):
@@ -240,13 +210,22 @@ def _check_values(axis: Axis, option: str, base: dict) -> None:
             raise SpecError(option, f"{axis.key} = {as_written(value)}: {where}: {_structure_message(e)}") from None
 
 
-def parse_vary(texts, base: dict, sampled: bool = False) -> tuple[Axis, ...]:
-    """Axes from ``--vary KEY=...`` option strings, checked against the spec schema.
+@dataclass(frozen=True)
+class Vary:
+    """One ``--vary`` as the command line read it: the key, and either a range (start, stop and
+    optionally a count) or a list of values, each a TOML value (quantities as strings)."""
+
+    key: str
+    values: tuple
+    is_range: bool
+
+
+def build_axes(varies, base: dict, sampled: bool = False) -> tuple[Axis, ...]:
+    """Axes from the ``--vary`` options, checked against the spec schema.
 
     Parameters
     ----------
-    texts : sequence of str
-        ``KEY=START:STOP``, ``KEY=START:STOP:COUNT`` or ``KEY=V1,V2,...``.
+    varies : sequence of Vary
     base : dict
         The base spec as TOML data (its values tell whole-number keys and fill sections).
     sampled : bool
@@ -258,27 +237,23 @@ def parse_vary(texts, base: dict, sampled: bool = False) -> tuple[Axis, ...]:
         ``"--vary"``: unknown key, a key given twice, a bad range, or a value of the wrong type
         or unit (the rule is in the message). Nothing is solved before this check.
     """
-    axes, seen = [], set()
-    for text in texts:
-        option = "--vary"
-        key, eq, rest = text.partition("=")
-        key = key.strip()
-        if not eq or not rest.strip():
-            raise SpecError(option, f"{text!r} has no values; {_VARY_RULE}")
-        _check_key(key, option)
-        if key in seen:
-            raise SpecError(option, f"{key} is varied twice; give each key once")
-        seen.add(key)
-        section, _, leaf = key.partition(".")
+    axes, seen, option = [], set(), "--vary"
+    for v in varies:
+        _check_key(v.key, option)
+        if v.key in seen:
+            raise SpecError(option, f"{v.key} is varied twice; give each key once")
+        seen.add(v.key)
+        section, _, leaf = v.key.partition(".")
         base_value = base.get(section, {}).get(leaf)
-        ranges = _split_top(rest, ":")
-        if len(ranges) > 1:
-            if len(ranges) > 3 or isinstance(base_value, list):
-                why = f"{key} takes a list per design" if isinstance(base_value, list) else "too many ':'"
-                raise SpecError(option, f"{key}={rest}: {why}; {_VARY_RULE}")
-            axis = _range_axis(key, option, ranges, base_value, sampled)
+        if v.is_range:
+            if not 2 <= len(v.values) <= 3 or isinstance(base_value, list):
+                why = f"{v.key} takes a list per design" if isinstance(base_value, list) else "a range has 2 or 3 parts"
+                raise SpecError(option, f"{v.key}: {why}; {_VARY_RULE}")
+            axis = _range_axis(v.key, option, v.values, base_value, sampled)
         else:
-            axis = _list_axis(key, [p for p in _split_top(rest, ",") if p.strip()])
+            if not v.values:
+                raise SpecError(option, f"{v.key} has no values; {_VARY_RULE}")
+            axis = _list_axis(v.key, v.values)
         _check_values(axis, option, base)
         axes.append(axis)
     return tuple(axes)

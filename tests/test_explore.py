@@ -21,10 +21,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from simloop.cli import main
+from simloop.cli import main, parse_vary
 from simloop.errors import SpecError
 from simloop.explore import (design_hash, designs_grid, designs_sample, dump_toml, evaluate_design,
-                             pareto_front, parse_vary, solve_budget)
+                             pareto_front, solve_budget)
 from tests.conftest import write_spec
 
 TINY = """
@@ -90,6 +90,7 @@ def test_list_of_tap_sets():
     ('frame.width="0.5 m":"1 pF":3', "not two quantities of the same kind"),
     ('frame.width="0.5 m":"1 m"', "needs a COUNT"),
     ("taps.turns=2:4", "takes a list per design"),
+    ("winding.turns=2:4:6:8", "a range has 2 or 3 parts"),
     ('frame.width="0.5 kg","1 m"', "frame.width"),
     ("winding.style=stacked,helix", "is not one of"),
     ("winding.turns", "has no values"),
