@@ -203,7 +203,7 @@ def _strip_timing(rows):
     for r in rows:
         r = {k: v for k, v in r.items() if k != "runtime_s"}
         if r.get("solves"):
-            r["solves"] = {k: v for k, v in r["solves"].items() if k not in ("seconds", "cached")}
+            r["solves"] = {k: v for k, v in r["solves"].items() if k not in ("seconds", "circuit_seconds", "cached")}
         out.append(r)
     return out
 
