@@ -153,12 +153,17 @@ def cmd_check(args) -> int:
 def _run_sweep(args, spec):
     from simloop.impedance import run_sweep
 
+    from simloop.explore import solve_budget
+
     progress = _Progress(args.quiet)
     try:
-        return run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
-                         direct=getattr(args, "direct", False))
+        result = run_sweep(spec, workers=args.workers, cache=_cache(args), progress=progress,
+                           direct=getattr(args, "direct", False))
     finally:
         progress.close()
+    if not args.quiet:
+        print(solve_budget(result).describe())
+    return result
 
 
 def _spec_out_sweep(args, spec, sweep):
@@ -346,6 +351,162 @@ def cmd_demo(args) -> int:
     return cmd_study(args, spec=spec, source_text=text)
 
 
+def _split_top(text: str, sep: str) -> list[str]:
+    """Split on ``sep`` outside brackets and quotes."""
+    parts, depth, quote, cur = [], 0, "", ""
+    for ch in text:
+        if quote:
+            quote = "" if ch == quote else quote
+        elif ch in "\"'":
+            quote = ch
+        elif ch == "[":
+            depth += 1
+        elif ch == "]":
+            depth -= 1
+        elif ch == sep and depth == 0:
+            parts.append(cur)
+            cur = ""
+            continue
+        cur += ch
+    return [*parts, cur]
+
+
+def _toml_value(text: str):
+    """A TOML value (number, array, quoted string), or the bare text as a string."""
+    import tomllib
+
+    text = text.strip()
+    try:
+        return tomllib.loads(f"v = {text}")["v"]
+    except tomllib.TOMLDecodeError:
+        return text.strip("\"'")
+
+
+def parse_vary(texts, base: dict, sampled: bool = False):
+    """``--vary KEY=START:STOP[:COUNT]`` or ``KEY=V1,V2,...`` options → checked axes.
+
+    Each part is read as a TOML value (``8``, ``[3, 5, 7]``, ``"0.5 m"``) or else as bare text
+    (``0.5 m``, ``spiral``); :func:`simloop.explore.build_axes` checks them against the spec.
+    """
+    from simloop.explore import Vary, build_axes
+
+    varies = []
+    for text in texts:
+        key, eq, rest = text.partition("=")
+        if not eq or not rest.strip():
+            raise SpecError("--vary", f"{text!r} has no values; write KEY=START:STOP, KEY=START:STOP:COUNT "
+                                      f"or KEY=V1,V2,...")
+        ranges = _split_top(rest, ":")
+        if len(ranges) > 1:
+            varies.append(Vary(key.strip(), tuple(_toml_value(p) for p in ranges), True))
+        else:
+            varies.append(Vary(key.strip(), tuple(_toml_value(p) for p in _split_top(rest, ",") if p.strip()), False))
+    return build_axes(varies, base, sampled)
+
+
+def _explore_executor(args, n_designs: int):
+    """A local process pool, or the executor of a running Dask cluster (checked before use);
+    its description, and the function that closes it."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    if not args.scheduler:
+        workers = args.workers or os.cpu_count() or 1
+        pool = ProcessPoolExecutor(max_workers=max(1, min(workers, n_designs)))
+        return pool, f"local pool of {workers} processes", lambda: pool.shutdown(cancel_futures=True)
+    import multiprocessing
+
+    from distributed import Client
+
+    from simloop.explore import DAEMON_RULE
+
+    try:
+        client = Client(args.scheduler, timeout="5s")
+    except (OSError, TimeoutError, ValueError, TypeError) as exc:
+        raise SpecError("--scheduler", f"no Dask scheduler answers at {args.scheduler!r} "
+                                       f"(write tcp://HOST:PORT): {exc}") from None
+    daemons = client.run(lambda: multiprocessing.current_process().daemon)
+    if not daemons:
+        client.close()
+        raise SpecError("--scheduler", f"the cluster at {args.scheduler} has no workers")
+    if any(daemons.values()):
+        client.close()
+        raise SpecError("--scheduler", DAEMON_RULE)
+    executor = client.get_executor()
+
+    def close():
+        executor.shutdown(wait=False)
+        client.close()
+
+    return executor, f"Dask cluster {args.scheduler} ({len(daemons)} workers)", close
+
+
+def cmd_explore(args) -> int:
+    """Vary spec keys over a grid or sample; one sweep and tune per design, in parallel."""
+    import tomllib
+
+    from simloop import explore as ex
+    from simloop import report_explore as rep
+    from simloop.spec import load
+    from simloop.tuning import band_plan
+
+    spec = load(args.spec)
+    base = tomllib.loads(Path(args.spec).read_text(encoding="utf-8-sig"))
+    axes = parse_vary(args.vary, base, sampled=args.samples is not None)
+    band_plan(args.band)
+    if args.objective == "boost" and spec.receiver is None:
+        raise SpecError("--objective", "boost needs a [receiver] in the spec (the radio the loop is coupled to)")
+    if args.samples is not None:
+        designs = ex.designs_sample(base, spec.name, axes, args.band, args.samples, args.seed)
+    else:
+        designs = ex.designs_grid(base, spec.name, axes, args.band)
+    out = Path(args.out) if args.out else Path("results") / spec.name / "explore"
+    done = {h: r for h, r in rep.read_rows(out).items() if rep.keep_on_resume(r)}
+    todo = [d for d in designs if d.hash not in done]
+    cache = None if args.no_cache else (os.environ.get("SIMLOOP_CACHE") or str(Path("results") / ".cache"))
+    cache = str(Path(cache).resolve()) if cache else None
+    rows = dict(done)
+    started = time.monotonic()
+    if todo:
+        executor, where, close = _explore_executor(args, len(todo))
+        if not args.quiet:
+            print(f"{len(designs)} designs ({len(designs) - len(todo)} finished earlier), on the {where}")
+            if spec.mesh.quality != "draft" and all(a.key != "mesh.quality" for a in axes):
+                print(f"note: mesh quality {spec.mesh.quality!r}; for exploration draft is usually enough "
+                      f"and several times faster (--vary mesh.quality=draft)")
+
+        def on_row(design, row):
+            rep.append_row(out, design, axes, row)
+
+        def progress(n, total):
+            if not args.quiet:
+                print(f"[simloop] designs: {n}/{total}", file=sys.stderr, flush=True)
+
+        try:
+            rows.update(ex.run_designs(todo, executor, args.band, cache, on_row=on_row, progress=progress))
+        finally:
+            close()
+    minutes = (time.monotonic() - started) / 60
+    records = rep.table(designs, axes, rows)
+    summ = rep.summary(records, args.objective)
+    meta = {"spec": spec.name, "band": args.band, "objective": args.objective,
+            "executor": "dask" if args.scheduler else "local", "run_minutes": minutes,
+            "designs_run": len(todo)}
+    out.mkdir(parents=True, exist_ok=True)
+    paths = [rep.write_csv(out / "explore.csv", records, axes),
+             rep.write_json(out / "explore.json", records, axes, meta, summ),
+             rep.plot_explore(out / "explore.png", records, axes, summ,
+                              f"{spec.name}: {len(records)} designs, band {args.band}")]
+    if not args.quiet:
+        print(rep.format_summary(records, axes, summ))
+        if todo and minutes > 0:
+            print(f"{len(todo)} designs in {minutes * 60:.1f} s ({len(todo) / minutes:.1f} designs/min)")
+        print(f"wrote {len(paths)} files to {out}/")
+    if summ["designs"] == summ["failed"]:
+        print("simloop: no design could be solved; the errors are in explore.csv", file=sys.stderr)
+        return 1
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="simloop", description=DESCRIPTION, epilog=EPILOG)
     parser.add_argument("--debug", action="store_true", help="show tracebacks")
@@ -420,6 +581,25 @@ def build_parser() -> argparse.ArgumentParser:
     common(p, spec=False)
     study_options(p)
     p.set_defaults(func=cmd_demo)
+    p = sub.add_parser("explore", parents=[debug], help="vary spec keys: one sweep and tune per design, in parallel")
+    p.add_argument("spec", help="base spec file (TOML)")
+    p.add_argument("--vary", action="append", required=True, metavar="KEY=RANGE",
+                   help="KEY=START:STOP, KEY=START:STOP:COUNT or KEY=V1,V2,... (repeat per key)")
+    p.add_argument("--samples", type=int, default=None,
+                   help="a Latin-hypercube sample of N designs instead of the full grid")
+    p.add_argument("--seed", type=int, default=0, help="seed of the sample (default 0)")
+    from simloop.explore import OBJECTIVES
+
+    p.add_argument("--objective", choices=list(OBJECTIVES), default="coverage",
+                   help="rank designs by: " + "; ".join(f"{k}: {v[1]}" for k, v in OBJECTIVES.items()))
+    p.add_argument("--band", default="itu-1", help="band plan, as for tune")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="run on a Dask cluster (tcp://HOST:PORT) instead of the local pool")
+    p.add_argument("--out", help="output folder (default results/<name>/explore/)")
+    p.add_argument("--workers", type=int, default=None, help="local design processes (default: all CPUs)")
+    p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
+    p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    p.set_defaults(func=cmd_explore)
     return parser
 
 

@@ -185,7 +185,7 @@ def build_loop(
         Winding style.
     lead_depths_m : tuple of float, optional
         Depth of each tap's lead; default e·(1 + i). Given explicitly to rebuild one tap's circuit
-        on its own (:func:`single_tap_circuit`). [m]
+        on its own. [m]
 
     Returns
     -------
@@ -239,27 +239,6 @@ def build_loop(
     )
 
 
-def single_tap_circuit(spec, tap_index: int) -> LoopGeometry:
-    """Tap ``tap_index``'s own circuit without anything that hangs open from it.
-
-    The same wire path as the tap's current path in the full loop (its turns, its lead at its own
-    depth, the link and collector down to that depth), but without the turns beyond the tap and the
-    other taps' leads. At low frequency those open wires carry no current, so this circuit has the
-    tap's low-frequency inductance; :mod:`simloop.impedance` uses it to remove the junction bias
-    of the MoM.
-    """
-    n = spec.taps.turns[tap_index]
-    return build_loop(
-        width_m=spec.frame.width_m,
-        height_m=spec.frame.height_m,
-        turns=n,
-        pitch_m=spec.winding.pitch_m,
-        wire_radius_m=spec.wire.radius_m,
-        tap_turns=(n,),
-        lead_offset_m=spec.leads.offset_m,
-        style=spec.winding.style,
-        lead_depths_m=(spec.leads.offset_m * (1 + tap_index),),
-    )
 
 
 def loop_from_spec(spec) -> LoopGeometry:

@@ -37,12 +37,11 @@ import numpy as np
 
 from simloop import reference
 from simloop.errors import SolverError, SpecError
-from simloop.geometry import (LoopGeometry, check_clearances, loop_from_spec, rod_clearance_problems,
-                              single_tap_circuit)
+from simloop.geometry import LoopGeometry, check_clearances, loop_from_spec, rod_clearance_problems
 from simloop.circuit import CircuitModel, build_circuit
 from simloop.lumped import LoopModel, fit_loop_model
-from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, Rule, build_mesh, mesh_for_spec, mesh_rules
-from simloop.solve import Environment, PortSolution, SolveCache, SolveRequest, solve_many, solve_ports
+from simloop.mesh import C0, FLOOR_TRUSTED, Mesh, Rule, build_mesh, mesh_for_spec, mesh_rules
+from simloop.solve import Environment, PortSolution, SolveCache, solve_ports
 
 #: A point is reported reliable when its relative impedance error estimate is below this.
 RELIABLE_BELOW = 0.05
@@ -108,7 +107,7 @@ class SolveRecord:
     """One MoM solve the sweep made: its role, cost and self-check."""
 
     frequency_hz: float
-    role: str  # "probe", "window" or "direct"
+    role: str  # "direct" (a sweep point) or "check" (a cross-check above the floor)
     seconds: float
     cached: bool
     asymmetry: float
@@ -120,7 +119,7 @@ class SolveFailure:
     """One MoM solve the sweep asked for and did not get (worker crashed, hung, returned NaN)."""
 
     frequency_hz: float
-    role: str  # "probe", "window" or "direct"
+    role: str  # "direct" (a sweep point) or "check" (a cross-check above the floor)
     reason: str
 
 
@@ -281,51 +280,10 @@ def prepare(spec) -> tuple[LoopGeometry, Mesh, list[Rule]]:
     return geom, mesh, rules
 
 
-def _lowest_resonance(model: LoopModel, f_max: float) -> float | None:
-    found = [model.self_resonance_hz(i, f_max) for i in range(model.ports)]
-    found = [f for f in found if f is not None]
-    return min(found) if found else None
 
 
-def _unique(freqs, existing):
-    out = []
-    for f in freqs:
-        if all(abs(f - g) > 1e-9 * g for g in list(existing) + out):
-            out.append(float(f))
-    return out
 
 
-def junction_correction(spec, geom: LoopGeometry, mesh: Mesh, env: Environment, model: LoopModel,
-                        fit_hz, resistivity, workers=None, cache=None, progress=None) -> np.ndarray:
-    """Ratio κ_i of each tap's low-frequency inductance without and with the open wires.
-
-    NEC reads a tap's impedance a few per cent high when open wire (the rest of the winding, the
-    other taps' leads) continues its current path straight through a junction, although that
-    wire carries no current at low frequency and cannot change L0 (measured: detaching the open
-    stub removed the excess to 0.01 %; finer meshes and the extended kernel did not). Each tap's
-    own circuit (:func:`simloop.geometry.single_tap_circuit`, meshed with the same segment and port
-    lengths) is solved at three of the fit frequencies and its L0 fitted; κ_i = L0_own/L0_full.
-    The tap at the end of the winding has no open wire continuing its path (the other leads
-    leave it at right angles) and keeps κ = 1.
-    """
-    k = len(geom.tap_turns)
-    kappa = np.ones(k)
-    port_len = float(mesh.segment_lengths_m[mesh.port_tags[0] - 1])
-    picks = sorted({fit_hz[0], fit_hz[len(fit_hz) // 2], fit_hz[-1]})
-    todo = [i for i, n in enumerate(geom.tap_turns) if not (i == k - 1 and n == spec.winding.turns)]
-    meshes = {i: build_mesh(single_tap_circuit(spec, i), mesh.target_m, mesh.quality, port_length_m=port_len)
-              for i in todo}
-    requests = [SolveRequest(meshes[i], env, f) for i in todo for f in picks]
-    cb = (lambda d, t: progress("junction", d, t)) if progress else None
-    out = solve_many(requests, workers=workers, cache=cache, progress=cb)
-    for n_done, i in enumerate(todo):
-        sols = out[n_done * len(picks):(n_done + 1) * len(picks)]
-        failed = [s for s in sols if isinstance(s, SolverError)]
-        if failed:
-            raise SolverError(f"tap {geom.tap_turns[i]}: its own circuit could not be solved: {failed[0]}")
-        own = fit_loop_model(picks, np.array([s.y for s in sols]), geom.wire_radius_m, resistivity)
-        kappa[i] = own.inductance_h[0, 0] / model.inductance_h[i, i]
-    return kappa
 
 
 # ------------------------------------------------------------------------------------------------
@@ -439,12 +397,16 @@ class CircuitStage:
 def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, f_sweep,
                          resistivity, proximity: bool = False) -> LoopModel:
     """The lumped L-C model fitted to exact circuit solves (skin loss only, as from the MoM), for
-    tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds), or
-    0.1–0.5 × the resonance if the band starts above that."""
+    tuning: over the band up to 0.6 × the lowest self-resonance (where its form holds) and up to
+    a turn perimeter of :data:`SMALL_LOOP_PERIMETER` wavelengths (where its f⁴ radiation law
+    holds), or 0.1–0.5 × the resonance if the band starts above that."""
     top = np.nanmin(srf) if np.any(np.isfinite(srf)) else np.inf
-    lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top)
+    outer_turn = float(geom.lengths_m[(np.array(geom.kinds) == "winding") & (geom.turn == 0)].sum())
+    small = SMALL_LOOP_PERIMETER * C0 / outer_turn  # where the fitted f⁴ radiation law holds
+    lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top, small)
     if hi < 1.3 * lo:
-        lo, hi = 0.1 * top, 0.5 * top
+        hi = min(0.5 * top, small)
+        lo = min(0.1 * top, hi / 1.3)
     fit_hz = np.geomspace(lo, hi, WINDOW_POINTS)
     circuit = cm if proximity else cm.with_proximity(False)
     y = np.array([np.linalg.inv(circuit.solve(f).z_ohm) for f in fit_hz])
@@ -476,7 +438,7 @@ def _circuit_stage(geom: LoopGeometry, plan: SourcePlan, env: Environment, f_swe
     return CircuitStage(cm, z, rom.error, srf, l0, lumped, lumped_p, time.perf_counter() - t0)
 
 
-def _mom_stage(mesh: Mesh, env: Environment, freqs, workers, cache, progress):
+def _mom_stage(mesh: Mesh, env: Environment, freqs, workers, cache, progress, check_hz=()):
     """Direct MoM solves: {frequency: PortSolution}, their records and the failures."""
     solved: dict[float, PortSolution] = {}
     records: list[SolveRecord] = []
@@ -490,7 +452,8 @@ def _mom_stage(mesh: Mesh, env: Environment, freqs, workers, cache, progress):
             failures[f] = res
             continue
         solved[f] = res
-        records.append(SolveRecord(f, "direct", res.seconds, res.cached, res.asymmetry,
+        role = "check" if any(abs(f - g) <= 1e-9 * g for g in check_hz) else "direct"
+        records.append(SolveRecord(f, role, res.seconds, res.cached, res.asymmetry,
                                    mesh.shortest_m * f / C0))
     return solved, records, failures
 
@@ -648,7 +611,8 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     f_sweep = np.asarray(spec.sweep.frequencies_hz, dtype=float)
     plan = plan_sources(spec, geom, mesh, direct=direct)
     circ = _circuit_stage(geom, plan, env, f_sweep, progress)
-    solved, records, failures = _mom_stage(mesh, env, plan.mom_hz + plan.check_hz, workers, cache, progress)
+    solved, records, failures = _mom_stage(mesh, env, plan.mom_hz + plan.check_hz, workers, cache, progress,
+                                           plan.check_hz)
     k = len(geom.tap_turns)
     end_tap = np.array([n == spec.winding.turns for n in geom.tap_turns])
     d_mom = _mom_difference(circ, solved, end_tap)
@@ -681,4 +645,5 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
         coverage=tuple(plan.coverage(float(f_sweep.min()), float(f_sweep.max()))),
         circuit_segments=plan.circuit_mesh.n_segments, circuit_seconds=circ.seconds,
         circuit_inductance_h=circ.inductance_h, circuit=circ.model, model_proximity=circ.lumped_proximity,
-        failures=tuple(SolveFailure(f, "direct", str(e)) for f, e in sorted(failures.items())))
+        failures=tuple(SolveFailure(f, "check" if f in plan.check_hz else "direct", str(e))
+                       for f, e in sorted(failures.items())))

@@ -124,7 +124,6 @@ SOIL_CLASSES: Final[dict[str, tuple[float, float]]] = {
 _MAX_POINTS: Final = 2001
 _MAX_TAPS: Final = 8
 _LEAD_OFFSET_DIAMETERS: Final = 4.0  # leads at least 4 wire diameters from the winding
-_LEAD_CLEARANCE_DIAMETERS: Final = 3.0  # leads keep 3 wire diameters from unjoined wire
 _GROUND_CLEARANCE_M: Final = 0.01  # the lowest lead must stay 1 cm above ground
 
 # Tuner defaults. Common practice for a home-built sliding-plate capacitor: one moving plate
@@ -764,16 +763,6 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     if not win.pitch.value > d:
         p.append(("winding.pitch", f"{win.pitch.text} must exceed {wire_text}; the turns would "
                                    f"touch"))
-    elif win.pitch.value < _LEAD_CLEARANCE_DIAMETERS * d:
-        # Every tap lead leaves the winding between two turns and passes the neighbouring turn at
-        # one pitch; a lead must keep three wire diameters from any wire it is not joined to
-        # (simloop.geometry.check_clearances), so the pitch must be at least that.
-        p.append(("winding.pitch", f"{win.pitch.text} is less than {_LEAD_CLEARANCE_DIAMETERS:g} × "
-                                   f"{wire_text} = {_mm(_LEAD_CLEARANCE_DIAMETERS * d)}: the tap leads "
-                                   f"leave the winding between neighbouring turns, one pitch from "
-                                   f"them, and a lead must keep {_LEAD_CLEARANCE_DIAMETERS:g} wire "
-                                   f"diameters from wire it is not joined to; wind at a pitch of at "
-                                   f"least {_mm(_LEAD_CLEARANCE_DIAMETERS * d)} or use thinner wire"))
     if win.style == "spiral" and win.turns >= 1:
         pitch = win.pitch.value
         for side, dim in (("width", m.frame.width), ("height", m.frame.height)):

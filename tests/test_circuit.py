@@ -1,5 +1,10 @@
 """The circuit solver (PEEC) against outside formulas: Grover's partial-inductance sums, Terman's
-rectangle, the exact round-wire skin effect, the small-loop moment, Smith's proximity factor."""
+rectangle, the exact round-wire skin effect, the small-loop moment, Smith's proximity factor.
+
+Sources: Grover, *Inductance Calculations*, 1946 (partial inductances, docs/references.md §1);
+Terman 1943 sec. 2 (rectangle); the exact Bessel-function skin effect (§4); Balanis ch. 5 (moment
+radiation, §3); G. S. Smith, IEEE Trans. AP-20, 1972 (proximity, §4); Ruehli 1974 (PEEC, §12, §19).
+"""
 
 from __future__ import annotations
 

@@ -76,9 +76,10 @@ def test_validate_reuses_the_sweeps_solves(study):
     validate_new = {e.key for e in log if e.stage == "validate" and e.how == "solved"}
     validate_shared = [e.key for e in log if e.stage == "validate" and e.how == "memory"]
     assert not sweep_keys & validate_new
-    # validate checks at each distinct fit-window frequency it picked (check_frequencies_hz);
-    # every one of those is a sweep solve handed over in memory.
-    assert len(validate_shared) >= study.validation.check_frequencies_hz.size
+    # validate's MoM checks at a frequency the sweep solved directly are handed over in memory
+    # (with the circuit solver carrying the band, the sweep solves the MoM only above its floor,
+    # so at least the top-of-band check is shared here)
+    assert len(validate_shared) >= 1
     assert set(validate_shared) <= sweep_keys
     # The sweep's own record agrees: with a fresh store nothing it lists came from a cache, and
     # it made at least as many solves as it records (the junction solves are not in .solves).

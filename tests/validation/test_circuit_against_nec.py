@@ -6,6 +6,9 @@ Acceptance (issue "Trusted impedance for the loops people actually build"): |Z| 
 0.8 × SRF and SRF within 3 %. The remaining difference is expected: NEC reads the inductance up to
 1.2 % low at segment/pitch 1.67 (measured pitch bias, simloop.impedance.pitch_bias) and the circuit
 has no retardation, an error growing as (kD)² towards the resonance.
+
+Sources: NEC-2 as PyNEC 2.3.4 (an outside full-wave solver, docs/notes/pynec.md); Ruehli 1974
+(PEEC, docs/references.md §12, §19).
 """
 
 from __future__ import annotations

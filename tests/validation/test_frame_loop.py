@@ -2,7 +2,11 @@
 0.25 in pitch, taps 8/10/12) sweeps with every MW point reliable, each tap's L0 on the
 partial-inductance sum, and its self-resonance cross-checked against direct NEC solves above
 NEC's floor (the acceptance of the project's issue "Trusted impedance for the loops people
-actually build"). About 4 minutes: two 3447-segment NEC solves."""
+actually build"). About 4 minutes: two 3447-segment NEC solves.
+
+Sources: Grover 1946 partial-inductance sums (docs/references.md §1); NEC-2 as PyNEC 2.3.4 for
+the self-resonance cross-check; the loop itself is common practice for home-built frame loops.
+"""
 
 from __future__ import annotations
 
