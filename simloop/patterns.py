@@ -53,10 +53,46 @@ This is why a night-time sky-wave station does not null like the same station's 
 
 **The rod** of a portable radio is a small magnetic dipole along its axis â: its open-circuit
 voltage is −jωμ0 μ_rod N A_rod H·â (Faraday's law); the pattern needs only H·â, so
-:func:`rod_response` returns that, and a receiver model can replace it (``rod_voltage``).
+:func:`rod_response` returns that; the pattern study uses the rod model of :mod:`simloop.receiver`
+at the spec's position and axis (:func:`rod_pickup`: the same physics with the rod's permeability,
+its linkage profile and the wave's phase along it; tested to agree).
+
+**The system** (the radio beside the loop, :func:`system_response`). The loop's tap closed by its
+tuning capacitor and the rod coil closed by the radio's form the 2-port of :mod:`simloop.coupling`;
+with both capacitors fixed the radio's capacitor voltage is linear in the two open-circuit
+voltages, V = t_loop V1 + t_rod V2 (:func:`two_port_transfer`), V1 the loop's by reciprocity (above)
+and V2 the rod's own pickup (:func:`rod_pickup`, :mod:`simloop.receiver`). The radio is peaked once,
+with the loop facing the station (its largest response), and left there while the loop or the
+radio is turned. At exact tune t_rod/t_loop = −(R1)/(jωM): the loop's contribution jωM V1 is in
+quadrature with the rod's own R1 V2 (V1 and V2 are both jω times a flux of the same field;
+Terman 1943, sec. 3, and :mod:`simloop.coupling`). For a vertically polarised wave, the loop's axis
+along y and a horizontal rod turned β from it (axis (sin β, cos β, 0)), the two contributions are
+L cos φ and R cos(φ + β), and with ρ = |R/L|
+
+.. math:: |V_{sys}|^2 \propto \cos^2\varphi + \rho^2\cos^2(\varphi+\beta)
+          \quad(\text{quadrature}),
+
+a quadratic form in (cos φ, sin φ) whose smaller eigenvalue is the null (derived here;
+:func:`system_null_law`, which also takes any phase ψ of R/L):
+
+* β = 0 (rod parallel to the loop axis): both nulls coincide; the system null stays complete and
+  on the loop's null.
+* Otherwise the null is filled to √(λ_min/λ_max), λ = ½(T ± √(T² − 4D)), T = 1 + ρ², D = ρ² sin²β,
+  ≈ 20 log10(ρ |sin β|) for small ρ, and moves from the loop's null by δ,
+  tan 2δ = −ρ² sin 2β/(1 + ρ² cos 2β) (≈ −½ρ² sin 2β: the shift is second order, the filling
+  first order in ρ). In phase (ψ = 0, a radio detuned far off) the null stays complete but moves.
+* On the loop's axis the loop's field at the rod lies along the axis, so M = M0 cos β and
+  ρ = ρ0/|cos β|: turning the radio fills the null as ρ0 tan β and moves it by ≈ −ρ0² tan β rad;
+  at β = 90° the rod is decoupled and the system is the rod alone.
+
+The loop's own antenna effect (its electric term e, in quadrature with its magnetic term) and
+the rod's contribution are then in phase with each other at the null: they add on one side of
+the loop and subtract on the other, so the two system nulls differ in depth by about
+20 log10((ρ sin β + e)/(ρ sin β − e)).
 
 References
 ----------
+.. [0] F. E. Terman, *Radio Engineers' Handbook*, McGraw-Hill, 1943, sec. 3 (coupled circuits).
 .. [1] C. A. Balanis, *Antenna Theory: Analysis and Design*, 4th ed., Wiley, 2016, sec. 2.11
    (vector effective length, eqs. 2-92, 2-93), ch. 5 (small loops: directivity 1.5).
 .. [2] J. D. Jackson, *Classical Electrodynamics*, 3rd ed., Wiley, 1999, sec. 9.2–9.3 (electric
@@ -510,6 +546,176 @@ def null_cause(total, magnetic, electric, azimuth_deg: float, reference: float):
 
 
 # ------------------------------------------------------------------------------------------------
+# The system: the loop and the radio's rod as one 2-port (simloop.coupling)
+# ------------------------------------------------------------------------------------------------
+
+#: :class:`PortFarField` and :class:`DipoleField` give Balanis's V = h·E, the EMF in the sense of
+#: the port current; :mod:`simloop.coupling` works with the passive-convention open-circuit
+#: voltage (V = Z I + V_oc), its negative (measured −1.0002 on the single-turn mesh against
+#: :func:`simloop.coupling.loop_open_circuit_voltage`; tested).
+PASSIVE_SIGN = -1.0
+
+
+def rod_pickup(rod, position_m, axis, frequency_hz: float) -> Callable:
+    """The rod's own open-circuit voltage for any arrival, from :mod:`simloop.receiver`.
+
+    Returns ``at(azimuth_deg, elevation_deg, polarization)`` → complex array (n,) [V per V/m],
+    passive sign convention, phase referred to the origin: :func:`simloop.receiver.
+    rod_open_circuit_voltage` of the rod at ``position_m`` along ``axis`` for the wave arriving
+    from r̂ (travelling along −r̂), by linearity a_v V(θ̂) + a_h V(φ̂).
+    """
+    from simloop.receiver import rod_open_circuit_voltage
+
+    pos = np.asarray(position_m, dtype=float)
+    ax = np.asarray(axis, dtype=float)
+
+    def at(azimuth_deg, elevation_deg, polarization="vertical"):
+        az = np.atleast_1d(np.asarray(azimuth_deg, dtype=float))
+        r, th, ph = (np.broadcast_to(v, az.shape + (3,)) for v in arrival_frame(az, elevation_deg))
+        a_v, a_h = polarization_components(polarization)
+        out = np.zeros(az.size, dtype=complex)
+        for i in range(az.size):
+            for a, e in ((a_v, th[i]), (a_h, ph[i])):
+                if a != 0:
+                    out[i] += a * rod_open_circuit_voltage(rod, pos, ax, -r[i], e, frequency_hz)
+        return out
+
+    at.model_name = "receiver"
+    return at
+
+
+def two_port_transfer(z11, z22, z12, zt1, zt2) -> tuple[complex, complex]:
+    r"""The radio's capacitor voltage as a linear map of the two open-circuit voltages.
+
+    Closing the 2-port (V = Z I + V_oc, passive convention) with Z_T1, Z_T2 gives
+    (Z + Z_T) I = −V_oc, so with a11 = Z11 + Z_T1, a22 = Z22 + Z_T2, Δ = a11 a22 − Z12²
+
+    .. math:: V_{radio} = I_2 Z_{T2} = \frac{Z_{T2}}{\Delta}\,(Z_{12}V_1 - a_{11}V_2)
+              = t_{loop}V_1 + t_{rod}V_2
+
+    (:func:`simloop.coupling.radio_voltage` is its magnitude). Returns (t_loop, t_rod). [-]
+    """
+    a11, a22 = z11 + zt1, z22 + zt2
+    det = a11 * a22 - z12 * z12
+    return complex(z12 * zt2 / det), complex(-a11 * zt2 / det)
+
+
+def system_null_law(ratio, rod_angle_deg, phase_deg=90.0, loop_null_deg=90.0):
+    r"""Null of the system at the horizon (vertical polarisation): azimuth and depth. [deg], [dB]
+
+    With the loop's axis along y and a horizontal rod turned β from it (axis (sin β, cos β, 0)),
+    a vertically polarised wave from azimuth φ has H ∝ (sin φ, −cos φ, 0), so the loop's
+    contribution is L cos φ and the rod's own R cos(φ + β); with ρ e^{jψ} = R/L
+
+    .. math:: |V_{sys}|^2 \propto |\cos\varphi + \rho e^{j\psi}\cos(\varphi+\beta)|^2 = x^T M x,
+              \quad x = (\cos\varphi, \sin\varphi),
+
+    M = aaᵀ + bbᵀ + cos ψ (abᵀ + baᵀ), a = (1, 0), b = ρ(cos β, −sin β). The null lies along M's
+    smaller eigenvector and its depth is √(λ_min/λ_max) (derived here; for ψ = ±90°, exact tune,
+    in closed form: tan 2δ = −ρ² sin 2β/(1 + ρ² cos 2β) from the loop's null at 90°, and
+    λ = ½(T ± √(T² − 4D)), T = 1 + ρ², D = ρ² sin²β).
+
+    Parameters
+    ----------
+    ratio : float
+        ρ, the rod's own contribution over the loop's at their maxima. [-]
+    rod_angle_deg : float
+        β, the rod's horizontal direction from the loop axis towards +x. [deg]
+    phase_deg : float
+        ψ, the phase of the rod's contribution against the loop's (90° at exact tune). [deg]
+    loop_null_deg : float
+        φ_L, the loop's own null (90° for an ideal loop; a real winding's steps tilt it by a
+        fraction of a degree): the loop's contribution is then L cos(φ − φ_L + 90°),
+        a = (sin φ_L, −cos φ_L), and L its value at φ_L − 90°. [deg]
+
+    Returns
+    -------
+    (azimuth_deg, depth_db)
+        One of the two nulls (the other lies 180° away), azimuth in [0°, 180°). Depth −inf when
+        the null is complete (ψ = 0° or 180°, or β = 0°).
+    """
+    b = np.radians(float(rod_angle_deg))
+    phi_l = np.radians(float(loop_null_deg))
+    a_vec = np.array([np.sin(phi_l), -np.cos(phi_l)])
+    b_vec = float(ratio) * np.array([np.cos(b), -np.sin(b)])
+    c = np.cos(np.radians(float(phase_deg)))
+    m = np.outer(a_vec, a_vec) + np.outer(b_vec, b_vec) + c * (np.outer(a_vec, b_vec) + np.outer(b_vec, a_vec))
+    lam, vec = np.linalg.eigh(m)
+    az = np.degrees(np.arctan2(vec[1, 0], vec[0, 0])) % 180.0
+    with np.errstate(divide="ignore"):
+        depth = 10 * np.log10(max(lam[0], 0.0) / lam[1]) if lam[1] > 0 else 0.0
+    return float(az), float(depth)
+
+
+@dataclass(frozen=True)
+class SystemModel:
+    """The loop–rod 2-port closed by both tuning capacitors at one frequency.
+
+    V_radio = ``t_loop`` V1 + ``t_rod`` V2 for the passive-convention open-circuit voltages of the
+    loop's tap (V1) and of the rod coil (V2). Capacitances in [F], M in [H], position in [m].
+    """
+
+    frequency_hz: float
+    tap: int
+    t_loop: complex
+    t_rod: complex
+    mutual_inductance_h: float
+    loop_capacitance_f: float
+    radio_capacitance_f: float
+    radio_capacitance_exact_f: float
+    rod_position_m: tuple
+    rod_axis: tuple
+    rod_assumed: bool
+
+    @property
+    def rod_angle_deg(self) -> float:
+        """β: the rod's horizontal direction from the loop axis (+y) towards +x. [deg]"""
+        return float(np.degrees(np.arctan2(self.rod_axis[0], self.rod_axis[1])))
+
+
+def system_model(ctx, frequency_hz: float, tap: int, zii: complex, loop_c_f: float, q_cap: float, v_loop_max: complex,
+                 v_rod_there: complex, repeak_radio: bool = True) -> SystemModel:
+    """The 2-port of :mod:`simloop.coupling` for the pattern (tuned loop, radio peaked once).
+
+    The loop's tap ``tap`` is closed by ``loop_c_f`` (with Q ``q_cap``); the radio is re-peaked for
+    the arrival where the loop's response is largest (``v_loop_max``, ``v_rod_there``: the two
+    open-circuit voltages of that arrival) — the user peaks the radio with the loop facing the
+    station, then turns the loop — and its capacitor is kept for every other arrival, so the
+    system's response is linear in (V1, V2). ``repeak_radio=False`` keeps the radio at exact tune
+    of its own coil (the coupled-circuit law's assumption; Terman 1943, sec. 3).
+
+    ``ctx`` is a :class:`simloop.coupling._Context` (the loop's currents, the rod and where it sits).
+    """
+    from simloop.coupling import mutual_inductance_h, repeak
+
+    f = float(frequency_hz)
+    w = 2 * np.pi * f
+    m_h = float(np.real(mutual_inductance_h(ctx.source, ctx.rod, ctx.position, ctx.axis)[tap, 0]
+                        * ctx.scale(f, tap)))
+    z22 = complex(ctx.rod.series_resistance_ohm(f) + 1j * w * ctx.rod.inductance_h)
+    zt1 = 1 / (1j * w * loop_c_f) + 1 / (w * loop_c_f * q_cap)
+    c2_exact = float(ctx.rod.tuning_capacitance_f(f))
+
+    def radio(c2):
+        t1, t2 = two_port_transfer(zii, z22, 1j * w * m_h, zt1, 1 / (1j * w * c2))
+        return abs(t1 * v_loop_max + t2 * v_rod_there)
+
+    c2 = c2_exact
+    if repeak_radio:
+        c2, _ = repeak(np.vectorize(radio), np.array(c2_exact))
+        c2 = float(c2)
+    t1, t2 = two_port_transfer(zii, z22, 1j * w * m_h, zt1, 1 / (1j * w * c2))
+    return SystemModel(f, tap, t1, t2, m_h, float(loop_c_f), c2, c2_exact,
+                       tuple(float(v) for v in ctx.position), tuple(float(v) for v in _unit3(ctx.axis)),
+                       bool(ctx.assumed))
+
+
+def _unit3(v) -> np.ndarray:
+    v = np.asarray(v, dtype=float)
+    return v / np.linalg.norm(v)
+
+
+# ------------------------------------------------------------------------------------------------
 # The pattern study
 # ------------------------------------------------------------------------------------------------
 
@@ -531,13 +737,16 @@ class PatternResult:
     elevation_deg : ndarray, shape (e,)  [deg]
     polarization : str
     response_db : dict of str → ndarray, shape (e, n)
-        ``"loop"`` (voltage across the tuned capacitor) and ``"receiver"`` (the rod alone, when
-        the spec has a ``[receiver]``), each in dB relative to its maximum over the whole grid.
+        ``"loop"`` (voltage across the tuned capacitor), ``"receiver"`` (the rod's own pickup
+        alone) and ``"system"`` (the radio's capacitor voltage with the loop beside it,
+        :func:`system_response`), each in dB relative to its maximum over the whole grid.
     nulls : tuple of Null
     models : dict of str → str
         Where each response came from: ``"mom"`` (NEC, above its breakdown floor),
         ``"mom-below-floor"`` (NEC below its floor: currents and null depths suspect),
-        ``"dipole"`` (a rod as a small magnetic dipole) or the name of a replacement model.
+        ``"circuit"`` (the circuit solver's dipole moments, below NEC's floor), ``"dipole"`` (a
+        rod as a small magnetic dipole), ``"receiver"`` (the rod model of
+        :mod:`simloop.receiver`), ``"two-port"`` (the system) or a replacement model's name.
     tap_turns : int
         The tap the tuner is connected to.
     capacitance_f : float
@@ -545,13 +754,15 @@ class PatternResult:
     loop_volts_per_v_m : float
         Largest voltage across the tuned capacitor for a 1 V/m wave. [V per V/m]
     magnetic_moment, electric_moment : ndarray, shape (3,), complex
-        The loop's dipole moments per unit port current fitted to the MoM far field
-        (free space only; NaN otherwise). [A·m², C·m]
+        The loop's dipole moments per unit port current, fitted to the MoM far field or the
+        circuit solver's (free space only; NaN otherwise). [A·m², C·m]
     multipole_residual : float
         Relative rms of the far field beyond the two dipoles. [-]
     floor_hz : float
         NEC's breakdown floor of this mesh. [Hz]
     notes : tuple of str
+    system : SystemModel or None
+        The loop–rod 2-port behind ``response_db["system"]`` (None without a coupling context).
     """
 
     frequency_hz: float
@@ -569,6 +780,7 @@ class PatternResult:
     multipole_residual: float
     floor_hz: float
     notes: tuple = ()
+    system: "SystemModel | None" = None
 
 
 def tuned_tap(sweep, tuner, frequency_hz: float) -> tuple[int, float, complex]:
@@ -606,13 +818,13 @@ def _db(values: np.ndarray, reference: float) -> np.ndarray:
 
 @dataclass(frozen=True)
 class _Response:
-    """One response's complex values (e, n) and its evaluators for the null finder."""
+    """One response's complex values (e, n), its evaluator and what splits its nulls' causes."""
 
     name: str
     values: np.ndarray
     at: Callable  # (azimuth array, elevation) -> complex array
     model: str
-    parts: tuple | None = None  # (magnetic, electric) evaluators for the cause split
+    cause: Callable | None = None  # (azimuth, elevation, reference) -> (cause, detail)
 
 
 def _loop_response(pff, tap: int, factor: complex, m, p, polarization):
@@ -631,6 +843,17 @@ def _loop_response(pff, tap: int, factor: complex, m, p, polarization):
     return at, (magnetic, electric)
 
 
+def _loop_cause(at, parts):
+    if parts is None:
+        return None
+    magnetic, electric = parts
+
+    def cause(az, el, reference):
+        return null_cause(lambda x: at(x, el), lambda x: magnetic(x, el), lambda x: electric(x, el), az, reference)
+
+    return cause
+
+
 def _nulls_of(resp: _Response, azimuth_deg, elevation_deg, reference: float) -> list[Null]:
     out = []
     for el in elevation_deg:
@@ -638,25 +861,158 @@ def _nulls_of(resp: _Response, azimuth_deg, elevation_deg, reference: float) -> 
             return np.abs(resp.at(np.asarray(az, dtype=float), el))
 
         for az, depth in find_minima(mag, azimuth_deg, reference):
-            if depth <= DEPTH_FLOOR_DB or resp.parts is None:
+            if depth <= DEPTH_FLOOR_DB or resp.cause is None:
                 cause, detail = ("exact" if depth <= DEPTH_FLOOR_DB else "not-split"), {}
             else:
-                magnetic, electric = resp.parts
-                cause, detail = null_cause(lambda x, el=el: resp.at(x, el), lambda x, el=el: magnetic(x, el),
-                                           lambda x, el=el: electric(x, el), az, reference)
+                cause, detail = resp.cause(az, float(el), reference)
             out.append(Null(az, float(el), depth, resp.name, cause, detail))
     return out
+
+
+def _min_near(fn, azimuth_deg: float, half_deg: float = 45.0, step_deg: float = 0.25):
+    """(azimuth, |fn|) of the smallest |fn| within ±half_deg of an azimuth (grid, then refined)."""
+    x = azimuth_deg + np.arange(-half_deg, half_deg + step_deg / 2, step_deg)
+    v = np.abs(fn(x))
+    i = int(np.argmin(v))
+    res = minimize_scalar(lambda t: float(np.abs(fn(np.array([t]))[0])) ** 2, method="bounded",
+                          bounds=(x[i] - step_deg, x[i] + step_deg), options={"xatol": 1e-6})
+    if res.success and np.sqrt(max(res.fun, 0.0)) < v[i]:
+        return float(res.x), float(np.sqrt(max(res.fun, 0.0)))
+    return float(x[i]), float(v[i])
+
+
+def _rel_db(value: float, reference: float) -> float:
+    return max(20 * np.log10(value / reference), DEPTH_FLOOR_DB) if value > 0 else DEPTH_FLOOR_DB
+
+
+def _wrap180(deg: float) -> float:
+    return float((deg + 180.0) % 360.0 - 180.0)
+
+
+def system_null_cause(loop_part, rod_part, azimuth_deg: float, reference: float, rod_angle_deg=None):
+    """Why a system null is as deep as it is, and where it moved, from V = V_loop + V_rod.
+
+    Parameters
+    ----------
+    loop_part, rod_part : callable
+        The loop's contribution (t_loop V1) and the rod's own (t_rod V2) at an array of azimuths.
+    azimuth_deg : float
+        The refined system null. [deg]
+    reference : float
+        The system's maximum magnitude.
+    rod_angle_deg : float, optional
+        β of :func:`system_null_law`; when given (vertical polarisation, a rod not vertical) the
+        law's null and depth are added for this ρ and ψ.
+
+    Returns
+    -------
+    (cause, detail)
+        Where the loop's contribution is the larger (ρ < 1, the usual case): ``"rod-pickup"`` (the
+        rod's own pickup fills or moves the loop's null by :data:`CAUSE_MARGIN_DB` or more) or
+        ``"loop-null"`` (as deep as the loop's own null through the coupling: its antenna effect
+        limits it). Where the rod's is: ``"loop-pickup"`` (the loop's pickup fills the rod's null)
+        or ``"rod-null"``. detail: ``without_rod_db``, ``without_loop_db``, ``shift_deg`` (from the
+        dominant part's own null), ``rod_over_loop`` (ρ), and, with ``rod_angle_deg``,
+        ``phase_deg`` (ψ), ``law_azimuth_deg``, ``law_depth_db``.
+    """
+    x = np.array([azimuth_deg])
+    total = float(np.abs(loop_part(x) + rod_part(x))[0])
+    ring = np.arange(0.0, 360.0, 2.0)
+    loop_max, rod_max = float(np.max(np.abs(loop_part(ring)))), float(np.max(np.abs(rod_part(ring))))
+    # The dominant part's null nearest the system null (a dipole's nulls lie 180° apart).
+    az_nr, v_nr = _min_near(loop_part, azimuth_deg, half_deg=89.0)
+    az_nl, v_nl = _min_near(rod_part, azimuth_deg, half_deg=89.0)
+    d_all, d_no_rod, d_no_loop = (_rel_db(v, reference) for v in (total, v_nr, v_nl))
+    loop_rules = loop_max >= rod_max
+    detail = {"without_rod_db": d_no_rod, "without_loop_db": d_no_loop,
+              "shift_deg": _wrap180(azimuth_deg - (az_nr if loop_rules else az_nl)),
+              "rod_over_loop": rod_max / loop_max if loop_max > 0 else float("inf")}
+    if rod_angle_deg is not None:
+        phi_l = az_nr % 180.0   # L cos(φ − φ_L + 90°) is L at φ_L − 90° (the law's convention)
+        big_l = complex(loop_part(np.array([phi_l - 90.0]))[0])
+        # the rod's contribution R cos(φ + β) with R taken at the null itself (the wave's phase
+        # across the rod's distance from the loop then drops out), at its maximum when β ≈ 0
+        c_null = np.cos(np.radians(azimuth_deg + float(rod_angle_deg)))
+        big_r = (complex(rod_part(x)[0]) / c_null if abs(c_null) > 0.1
+                 else complex(rod_part(np.array([-float(rod_angle_deg)]))[0]))
+        rho, psi = abs(big_r / big_l), float(np.degrees(np.angle(big_r / big_l)))
+        law_az, law_db = system_null_law(rho, rod_angle_deg, psi, loop_null_deg=phi_l)
+        law_az += 180.0 * round((azimuth_deg - law_az) / 180.0)
+        detail.update(rod_over_loop=rho, phase_deg=psi, rod_angle_deg=float(rod_angle_deg),
+                      law_azimuth_deg=float(law_az % 360.0), law_depth_db=max(law_db, DEPTH_FLOOR_DB))
+    if loop_rules:
+        cause = "rod-pickup" if d_all - d_no_rod >= CAUSE_MARGIN_DB else "loop-null"
+    else:
+        cause = "loop-pickup" if d_all - d_no_loop >= CAUSE_MARGIN_DB else "rod-null"
+    return cause, detail
+
+
+def _receiver_response(receiver, context, rod_voltage, f, az, els, polarization):
+    """The rod alone: the receiver model at the context's placement, or the ideal dipole."""
+    if context is not None:
+        rod = rod_voltage or rod_pickup(context.rod, context.position, context.axis, f)
+    elif receiver is not None:
+        rod = rod_voltage or (lambda a, e, pol: rod_response(receiver.axis, a, e, pol))
+    else:
+        return None, None
+    model = getattr(rod, "model_name", "dipole" if rod_voltage is None and context is None else "receiver")
+
+    def rod_fn(a, e):
+        return rod(a, e, polarization)
+
+    return rod, _Response("receiver", np.array([rod_fn(az, e) for e in els]), rod_fn, model)
+
+
+def system_response(pff, tap: int, zii: complex, capacitance_f: float, q_cap: float, context, rod,
+                    azimuth_deg, elevation_deg, polarization="vertical", repeak_radio: bool = True):
+    """The system's response: the radio's capacitor voltage with the loop beside it, per arrival.
+
+    V = t_loop V1 + t_rod V2 (:class:`SystemModel`), V1 the loop tap's open-circuit voltage by
+    reciprocity (``pff``, turned to the passive convention with :data:`PASSIVE_SIGN`), V2 the
+    rod's own (``rod(az, el, polarization)``, e.g. :func:`rod_pickup`).
+
+    Returns
+    -------
+    (SystemModel, _Response)
+    """
+    f = pff.frequency_hz
+    az, els = np.asarray(azimuth_deg, dtype=float), np.asarray(elevation_deg, dtype=float)
+
+    def v1(a, e):
+        return PASSIVE_SIGN * pff.voltage(a, e, polarization)[tap]
+
+    loop_vals = np.array([v1(az, e) for e in els])
+    i_e, i_a = np.unravel_index(np.argmax(np.abs(loop_vals)), loop_vals.shape)
+    v2_there = rod(az[i_a:i_a + 1], els[i_e], polarization)[0]
+    model = system_model(context, f, tap, zii, capacitance_f, q_cap, loop_vals[i_e, i_a], v2_there, repeak_radio)
+
+    def loop_part(a, e):
+        return model.t_loop * v1(a, e)
+
+    def rod_part(a, e):
+        return model.t_rod * rod(a, e, polarization)
+
+    def at(a, e):
+        return loop_part(a, e) + rod_part(a, e)
+
+    axis = np.asarray(model.rod_axis)
+    law_beta = model.rod_angle_deg if (polarization == "vertical" and np.hypot(axis[0], axis[1]) > 1e-6) else None
+
+    def cause(a, e, reference):
+        return system_null_cause(lambda x: loop_part(x, e), lambda x: rod_part(x, e), a, reference, law_beta)
+
+    return model, _Response("system", np.array([at(az, e) for e in els]), at, "two-port", cause)
 
 
 def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, elevation_deg=(0.0,),
                            polarization="vertical", receiver=None, rod_voltage=None, floor_hz: float = 0.0,
                            azimuth_step_deg: float = AZIMUTH_STEP_DEG, notes=(),
-                           model: str | None = None) -> PatternResult:
-    """Loop and rod patterns, with their nulls, from a solved MoM far field.
+                           model: str | None = None, context=None, repeak_radio: bool = True) -> PatternResult:
+    """Loop, rod and system patterns, with their nulls, from a solved far field.
 
     Parameters
     ----------
-    pff : PortFarField
+    pff : PortFarField or DipoleField
         Port-excitation far fields at the pattern frequency, with rows at the elevations.
     moments : (m, p, residual), optional
         The loop's dipole moments (:meth:`PortFarField.fit_dipole_moments`, free space); they
@@ -667,10 +1023,10 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
     elevation_deg : sequence of float  [deg]
     polarization : str or (complex, complex)
     receiver : simloop.spec.ReceiverSpec, optional
-        The radio's rod (its axis); None leaves the rod out.
+        Without ``context``: the rod as an ideal dipole along its axis (no system response).
     rod_voltage : callable, optional
         ``rod_voltage(azimuth_deg, elevation_deg, polarization)`` → complex open-circuit voltage
-        of the rod (a receiver model); default :func:`rod_response` on the receiver's axis.
+        of the rod (passive convention); default :func:`rod_pickup` of the context's rod.
     floor_hz : float
         NEC's breakdown floor of the mesh: below it the loop pattern is flagged. [Hz]
     azimuth_step_deg : float
@@ -680,6 +1036,11 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
     model : str, optional
         Where the loop response came from (default ``"mom"``, or ``"mom-below-floor"`` below
         ``floor_hz``); ``"circuit"`` for a :class:`DipoleField` of the circuit solver.
+    context : simloop.coupling._Context, optional
+        The loop's currents, the rod and its placement: adds the rod's own pickup
+        (:mod:`simloop.receiver`) and the system response (:func:`system_response`).
+    repeak_radio : bool
+        Peak the radio once with the loop (True) or keep it at exact tune of its coil.
     """
     f = pff.frequency_hz
     tap, cap, zii = tuned_tap(sweep, tuner, f)
@@ -694,21 +1055,23 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
         nan = np.full((pff.ports, 3), np.nan + 0j)
         m, p, resid = nan, nan, np.full(pff.ports, np.nan)
         at, parts = _loop_response(pff, tap, factor, m, p, polarization)[0], None
-    responses = [_Response("loop", np.array([at(az, e) for e in els]), at, loop_model, parts)]
-    if receiver is not None:
-        rod_model = "dipole" if rod_voltage is None else getattr(rod_voltage, "model_name", "receiver")
-        rod = rod_voltage or (lambda a, e, pol: rod_response(receiver.axis, a, e, pol))
-
-        def rod_fn(a, e):
-            return rod(a, e, polarization)
-
-        responses.append(_Response("receiver", np.array([rod_fn(az, e) for e in els]), rod_fn, rod_model))
+    responses = [_Response("loop", np.array([at(az, e) for e in els]), at, loop_model, _loop_cause(at, parts))]
+    rod, rod_resp = _receiver_response(receiver, context, rod_voltage, f, az, els, polarization)
+    system = None
+    if rod_resp is not None:
+        responses.append(rod_resp)
+    if context is not None:
+        system, sys_resp = system_response(pff, tap, zii, cap, tuner.q, context, rod, az, els, polarization,
+                                           repeak_radio)
+        responses.append(sys_resp)
     response_db, nulls = {}, []
     for r in responses:
         ref = float(np.max(np.abs(r.values)))
         response_db[r.name] = _db(r.values, ref)
         nulls += _nulls_of(r, az, els, ref)
     notes = list(notes) + _pattern_notes(f, floor_hz, els, polarization, model)
+    if system is not None and system.rod_assumed:
+        notes.append("receiver-assumed")
     return PatternResult(
         frequency_hz=f, azimuth_deg=az, elevation_deg=els,
         polarization=polarization if isinstance(polarization, str) else str(polarization),
@@ -716,7 +1079,7 @@ def pattern_from_far_field(pff: PortFarField, sweep, tuner, *, moments=None, ele
         tap_turns=int(sweep.tap_turns[tap]), capacitance_f=cap,
         loop_volts_per_v_m=float(np.max(np.abs(responses[0].values))),
         magnetic_moment=m[tap], electric_moment=p[tap], multipole_residual=float(resid[tap]),
-        floor_hz=float(floor_hz), notes=tuple(notes))
+        floor_hz=float(floor_hz), notes=tuple(notes), system=system)
 
 
 def _pattern_notes(f: float, floor_hz: float, els, polarization, model) -> list[str]:
@@ -815,6 +1178,9 @@ def check_pattern_inputs(spec) -> None:
     from simloop.errors import SpecError
     from simloop.spec import PatternSpec
 
+    from simloop.coupling import precheck
+
+    precheck(spec)  # a rod too close to the wire for the coupling model
     ps = spec.pattern or PatternSpec()
     if spec.ground.kind == "real" and any(float(e) <= 0.0 for e in ps.elevation_deg):
         where = "" if spec.pattern is not None else " (the default when [pattern] is absent)"
@@ -852,12 +1218,15 @@ def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress
     check_pattern_inputs(spec)
     ps = spec.pattern or PatternSpec()
     env = sweep.environment
+    tuner = tuner_from_spec(spec.tuner)
+    floor_hz = sweep.mesh.floor_frequency_hz()
+    if ps.frequency_hz < floor_hz and env.ground == "free-space" and getattr(sweep, "circuit", None) is not None:
+        return _circuit_pattern(spec, sweep, tuner, ps, floor_hz, rod_voltage)
     plan, rows, grid = pattern_plan(sweep.mesh, env, ps.frequency_hz, ps.elevation_deg)
     cb = (lambda d, t: progress("pattern", d, t)) if progress else None
     (res,) = solve_plans([plan], executor=executor, workers=workers, cache=cache, progress=cb)
     if isinstance(res, SolverError):
         raise res
-    tuner = tuner_from_spec(spec.tuner)
     sphere = PortFarField(far_field_solution(res, grid))
     tap, _, _ = tuned_tap(sweep, tuner, ps.frequency_hz)
     efficiency = power_check(sphere, tap, f"{ps.frequency_hz / 1e6:.6g} MHz over {env.ground}")
@@ -866,4 +1235,26 @@ def run_pattern(spec, sweep, *, workers: int | None = None, cache=None, progress
     return pattern_from_far_field(_rows_field(res, rows), sweep, tuner, moments=moments,
                                   elevation_deg=ps.elevation_deg, polarization=ps.polarization,
                                   receiver=spec.receiver, rod_voltage=rod_voltage,
-                                  floor_hz=sweep.mesh.floor_frequency_hz(), notes=notes)
+                                  floor_hz=floor_hz, notes=notes, context=couple_context(spec, sweep))
+
+
+def _circuit_pattern(spec, sweep, tuner, ps, floor_hz: float, rod_voltage) -> PatternResult:
+    """Below NEC's breakdown floor (free space): the loop's response from the circuit solver's
+    magnetic and electric dipole moments (:class:`DipoleField`; the loop is small against the
+    wavelength there, so the two dipoles are its whole far field — tested against the MoM above
+    the floor)."""
+    sol = sweep.circuit.solve(ps.frequency_hz)
+    m, p = sol.dipole_moments()
+    dip = DipoleField(m, p, ps.frequency_hz)
+    return pattern_from_far_field(dip, sweep, tuner, moments=dip.moments, elevation_deg=ps.elevation_deg,
+                                  polarization=ps.polarization, receiver=spec.receiver, rod_voltage=rod_voltage,
+                                  floor_hz=floor_hz, notes=[f"circuit-below-floor:{floor_hz:.6g}"],
+                                  model="circuit", context=couple_context(spec, sweep))
+
+
+def couple_context(spec, sweep):
+    """The loop's quasi-static currents, the rod and its placement as :mod:`simloop.coupling`
+    sees them (the default receiver 15 cm in front of the winding when the spec has none)."""
+    from simloop.coupling import DEFAULT_WAVE, _Context
+
+    return _Context(spec, sweep, None, DEFAULT_WAVE)

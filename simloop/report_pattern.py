@@ -20,14 +20,21 @@ PLOT_FLOOR_DB = -40.0
 
 #: Line styles distinguishable in grey print: (line style, grey level, width, null marker).
 STYLES = {"loop": ("-", "0.0", 1.8, "v"), "receiver": ("--", "0.45", 1.3, "^"), "system": (":", "0.25", 2.0, "s")}
-LABELS = {"loop": "loop (voltage on the tuned capacitor)", "receiver": "radio's rod alone", "system": "loop + radio"}
+LABELS = {"loop": "loop (voltage on the tuned capacitor)", "receiver": "radio's rod alone", "system": "system: the radio with the loop beside it"}
 
 MODELS = {
     "mom": "NEC (method of moments)",
     "mom-below-floor": "NEC below its breakdown floor: currents, and so null depths, suspect",
     "dipole": "the rod as a small magnetic dipole (analytic)",
     "circuit": "the circuit solver's dipole moments (quasi-static, no breakdown floor)",
+    "receiver": "the rod model of the receiver (its own pickup at its position and axis)",
+    "two-port": "the loop-rod 2-port: loop tuned, radio peaked once with the loop facing the station",
 }
+
+
+#: Where the loop's response came from, short, for the figure's title.
+SOURCE_SHORT = {"mom": "NEC", "mom-below-floor": "NEC below its breakdown floor (suspect)",
+                "circuit": "the circuit solver (below NEC's floor)"}
 
 
 def cause_text(null) -> str:
@@ -42,6 +49,8 @@ def cause_text(null) -> str:
     if null.cause == "combined":
         return (f"electric dipole (e = {d['e']:.3g}) and the field beyond the dipoles together "
                 f"(removing either alone: {d['without_electric_db']:.1f} / {d['without_rest_db']:.1f} dB)")
+    if null.cause in ("rod-pickup", "loop-pickup", "loop-null", "rod-null"):
+        return _system_cause_text(null)
     if null.cause == "exact":
         return f"an exact zero of the model (deeper than {-DEPTH_FLOOR_DB:.0f} dB): nothing in it fills this null"
     if null.cause == "not-split":
@@ -49,15 +58,42 @@ def cause_text(null) -> str:
     return null.cause
 
 
+def _system_cause_text(null) -> str:
+    d = null.detail
+    law = ""
+    if "law_depth_db" in d:
+        law = (f"; law for ρ = {d['rod_over_loop']:.3g}, ψ = {d['phase_deg']:.0f}°, rod at β = "
+               f"{d['rod_angle_deg']:.0f}° from the loop axis: {d['law_depth_db']:.1f} dB at {d['law_azimuth_deg']:.2f}°")
+    if null.cause == "rod-pickup":
+        head = (f"the radio's own rod pickup fills it (without it {d['without_rod_db']:.1f} dB) and moves it "
+                f"{d['shift_deg']:+.2f}° from the loop's null")
+    elif null.cause == "loop-pickup":
+        head = (f"the rod's own null (the rod's pickup dominates, ρ = {d['rod_over_loop']:.3g}), filled by the "
+                f"loop's pickup through the coupling (without the loop {d['without_loop_db']:.1f} dB)")
+    elif null.cause == "rod-null":
+        head = f"the rod's own null (the rod's pickup dominates, ρ = {d['rod_over_loop']:.3g})"
+    else:
+        head = (f"the loop's own null carried through the coupling, {d['shift_deg']:+.2f}° from it "
+                f"(without the rod {d['without_rod_db']:.1f} dB): what limits the loop's null limits this one")
+    return head + law
+
+
 def note_text(code: str) -> str:
     kind, _, value = code.partition(":")
     if kind == "below-floor":
         return (f"the pattern frequency lies below NEC's breakdown floor of this mesh ({float(value) / 1e6:.3g} MHz): "
-                "its currents and so its null depths are suspect (the circuit solver's dipole moments will "
-                "replace them there)")
+                "its currents and so its null depths are suspect (over a ground the circuit solver's "
+                "free-space dipoles cannot replace them)")
     if kind == "horizontal-at-horizon":
         return ("a horizontally polarised wave at the horizon does not couple to the loop's magnetic moment: "
                 "the loop's response there is its antenna effect alone")
+    if kind == "circuit-below-floor":
+        return (f"the pattern frequency lies below NEC's breakdown floor of this mesh ({float(value) / 1e6:.3g} MHz): "
+                "the loop's response comes from the circuit solver's magnetic and electric dipole moments "
+                "(free space), not from NEC")
+    if kind == "receiver-assumed":
+        return ("no [receiver] in the spec: a typical radio's rod (10 × 100 mm, μi 125, 65 turns, loaded Q 60) "
+                "is assumed 15 cm in front of the winding, its axis along the loop's")
     if kind == "efficiency":
         return f"power check passed: radiated / input power of the tap = {float(value):.3g}"
     if kind == "ground":
@@ -86,8 +122,20 @@ def pattern_dict(result: PatternResult) -> dict:
         "dipole": {"magnetic_moment_a_m2": _pairs(m), "electric_moment_c_m": _pairs(p),
                    "electric_over_magnetic": e_ratio, "multipole_residual": result.multipole_residual},
         "floor_hz": result.floor_hz,
+        "system": _system_dict(result.system),
         "notes": [note_text(c) for c in result.notes],
     }
+
+
+def _system_dict(model) -> dict | None:
+    if model is None:
+        return None
+    return {"tap_index": model.tap, "mutual_inductance_h": model.mutual_inductance_h,
+            "loop_capacitance_f": model.loop_capacitance_f, "radio_capacitance_f": model.radio_capacitance_f,
+            "radio_capacitance_exact_tune_f": model.radio_capacitance_exact_f,
+            "rod_position_m": list(model.rod_position_m), "rod_axis": list(model.rod_axis),
+            "rod_angle_deg": model.rod_angle_deg, "rod_assumed": model.rod_assumed,
+            "transfer_loop": _pairs(np.array([model.t_loop]))[0], "transfer_rod": _pairs(np.array([model.t_rod]))[0]}
 
 
 def format_pattern_summary(result: PatternResult) -> str:
@@ -97,6 +145,12 @@ def format_pattern_summary(result: PatternResult) -> str:
              f"(at the maximum {result.loop_volts_per_v_m:.3g} V on the capacitor per V/m of field)"]
     for name, model in result.models.items():
         lines.append(f"  {name}: {MODELS.get(model, model)}")
+    sm = result.system
+    if sm is not None:
+        lines.append(f"  system: rod at {tuple(round(v, 3) for v in sm.rod_position_m)} m, turned "
+                     f"{sm.rod_angle_deg:.0f}° from the loop axis, M = {sm.mutual_inductance_h * 1e9:.3g} nH; "
+                     f"radio peaked at {sm.radio_capacitance_f * 1e12:.1f} pF "
+                     f"(its coil alone tunes at {sm.radio_capacitance_exact_f * 1e12:.1f} pF)")
     for n in sorted(result.nulls, key=lambda n: (n.of, n.elevation_deg, n.azimuth_deg)):
         depth = f"{n.depth_db:7.1f} dB" if n.depth_db > DEPTH_FLOOR_DB else "  exact   "
         lines.append(f"  null of {n.of:<8} at azimuth {n.azimuth_deg:6.2f}°, elevation {n.elevation_deg:4.1f}°: "
@@ -133,7 +187,8 @@ def plot_pattern(result: PatternResult, path: Path) -> Path:
         if i == 0:
             ax.legend(loc="lower left", bbox_to_anchor=(-0.1, -0.16), fontsize=7, frameon=False)
     fig.suptitle(f"Receive pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
-                 f"tap {result.tap_turns}\neach response relative to its own maximum", fontsize=10)
+                 f"tap {result.tap_turns}\neach response relative to its own maximum; the loop's from "
+                 f"{SOURCE_SHORT.get(result.models.get('loop'), result.models.get('loop'))}", fontsize=10)
     fig.savefig(path, dpi=110)
     return path
 
@@ -145,8 +200,8 @@ def _mark_nulls(ax, nulls, span: float) -> None:
         a = np.radians(x.azimuth_deg)
         ax.plot([a], [r], marker=marker, color=grey, mfc="white" if x.of != "loop" else grey, ms=7, ls="none")
         text = f"{x.of} null {x.depth_db:.1f} dB" if x.depth_db > DEPTH_FLOOR_DB else f"{x.of} null: exact"
-        side = 1 if x.of == "loop" else -1
-        ax.annotate(text, (a, r), xytext=(a + side * np.radians(14), 0.62 * span), fontsize=7, color=grey,
+        turn, height = {"loop": (14, 0.62), "receiver": (-14, 0.62), "system": (32, 0.30)}[x.of]
+        ax.annotate(text, (a, r), xytext=(a + np.radians(turn), height * span), fontsize=7, color=grey,
                     ha="center", bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
                     arrowprops={"arrowstyle": "-", "color": grey, "lw": 0.6})
 
