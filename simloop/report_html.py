@@ -417,7 +417,7 @@ def section_boost(result) -> str | None:
                          f"Boost in the plane z = {c.map_z_m:+.2f} m (the bottom of the frame) with the rod "
                          "turned 0°, 45° and 90° from the loop axis (white bar, lower left). The loop's winding seen from above in grey; white "
                          "dashes: the coupling changes sign (no boost there); blank: too close to the wire for "
-                         "the model; ★ the best spot."))
+                         "the model; □ the radio where the spec puts it, seen from above; ★ the best spot."))
     if c.notes:
         parts.append("<ul>" + "".join(f"<li>{esc(n)}</li>" for n in c.notes) + "</ul>")
     parts.append("<p>With a real radio: tune it to a weak station, then turn the loop's capacitor slowly "
@@ -608,6 +608,16 @@ def section_assumptions(result) -> str:
             worst = float(np.max(t.model_error.max_relative_error))
             items.append(f"The fitted model differs from direct MoM solves it was not fitted to by at most "
                          f"{worst:.2%} (|Z|).")
+    if result.couple is not None:
+        items.append("Boost and placement: the loop's currents are the quasi-static ones of its wire path, "
+                     "scaled by the sweep model's winding current per port current; the ferrite rod is an "
+                     "analytic model (fluxmetric demagnetisation, Chen, Brug & Goldfarb 1991); the radio's "
+                     "case, a hand and the table are not modelled; the wave arrives in the loop's plane, "
+                     "vertically polarised.")
+    if result.pattern is not None:
+        items.append("Patterns: by reciprocity from the far field of one MoM solve at the pattern frequency; "
+                     "the null causes come from the loop's fitted magnetic and electric dipole moments (free "
+                     "space only).")
     if sw.window_note:
         items.append(esc(sw.window_note))
     return "<ul>" + "".join(f"<li>{x}</li>" for x in items) + "</ul>"

@@ -386,12 +386,10 @@ def _capacitor_peak(ax, c, tuner_has_position: bool):
     else:
         width = "−3 dB width not resolved"
     ax.axhline(peak - 3.0, color=MUTED, lw=0.6, ls=(0, (4, 2)))
-    ax.axvline(c.loop_capacitance_f * 1e12, color=MUTED, lw=0.7, ls=(0, (1, 1.5)))
-    ax.text(c.loop_capacitance_f * 1e12, ax.get_ylim()[0], " loop tuned alone", rotation=90, fontsize=6.5,
-            color=MUTED, ha="right", va="bottom")
-    ax.plot([cap[top]], [peak], "v", color=INK, ms=4)
-    ax.text(0.02, 0.97, f"peak {peak:.1f} dB at {cap[top]:.1f} pF\n{width}", transform=ax.transAxes,
-            va="top", fontsize=7, bbox=dict(fc="white", ec="none", pad=0.8))
+    ax.axvline(c.loop_capacitance_f * 1e12, color=MUTED, lw=0.8, ls=(0, (1, 1.5)),
+               label=f"loop tuned alone: {c.loop_capacitance_f * 1e12:.1f} pF")
+    ax.plot([cap[top]], [peak], "v", color=INK, ms=4, label=f"peak {peak:.1f} dB at {cap[top]:.1f} pF\n{width}")
+    ax.legend(loc="best", fontsize=6.5, handlelength=1.0, frameon=False)
     ax.set_xlabel("loop tuning capacitor [pF]")
     ax.set_ylabel("boost [dB]")
     ax.set_title(f"the capacitor's peak at {c.frequency_hz / 1e3:.0f} kHz, tap {c.tap_turns[c.tap_index]}")
@@ -413,11 +411,11 @@ def _spacing(ax, c, system: str):
         style.update(color=INK)
     ax.plot([c.optimum_spacing_m * 100], [c.optimum_spacing_boost_db], **style)
     word = "at the closest the model allows" if c.optimum_at_near_limit else "optimum"
-    ax.text(0.98, 0.97, f"{word}: {length_text(c.optimum_spacing_m, system)}, {c.optimum_spacing_boost_db:.1f} dB",
-            transform=ax.transAxes, ha="right", va="top", fontsize=7, bbox=dict(fc="white", ec="none", pad=0.8))
+    ax.lines[-1].set_label(f"{word}: {length_text(c.optimum_spacing_m, system)}, {c.optimum_spacing_boost_db:.1f} dB")
+    ax.legend(loc="best", fontsize=6.5, handlelength=1.0, frameon=False)
     ax.set_xlabel("rod centre's distance along the loop axis [cm]")
     ax.set_ylabel("boost [dB]")
-    ax.set_title("moving the radio straight out from the loop")
+    ax.set_title("spacing along the loop axis")
 
 
 def plot_boost(c, tune, system: str = "metric", plates: bool = False) -> str:
@@ -463,7 +461,7 @@ def placement_figure(c) -> Figure:
     from simloop.coupling import MAP_ORIENTATIONS_DEG
 
     n = len(MAP_ORIENTATIONS_DEG)
-    fig = figure(FULL_WIDTH_MM, 78)
+    fig = figure(FULL_WIDTH_MM, 64)
     axes = fig.subplots(1, n, sharey=True)
     finite = c.map_boost_db[np.isfinite(c.map_boost_db)]
     vmin, vmax = (float(np.percentile(finite, 5)), float(finite.max())) if finite.size else (0.0, 1.0)
@@ -481,6 +479,7 @@ def placement_figure(c) -> Figure:
         if np.nanmin(k) < 0 < np.nanmax(k):
             ax.contour(xx, yy, k, levels=[0.0], colors="white", linewidths=0.9, linestyles=[(0, (3, 2))])
         ax.add_patch(Rectangle((x0, y0), x1 - x0, max(y1 - y0, 0.01), facecolor=MUTED, edgecolor=INK, lw=0.6))
+        ax.plot([c.position_m[0]], [c.position_m[1]], "s", mfc="none", mec="white", mew=1.0, ms=5)
         if o == best:
             ax.plot([c.best_position_m[0]], [c.best_position_m[1]], "*", color=INK, mec="white", mew=0.7, ms=11)
         th = np.radians(MAP_ORIENTATIONS_DEG[o])
@@ -492,7 +491,7 @@ def placement_figure(c) -> Figure:
         ax.set_aspect("equal")
         ax.grid(False)
     axes[0].set_ylabel("y, along the loop axis [m]")
-    fig.colorbar(cf, ax=list(axes), label="boost [dB]", shrink=0.9, aspect=25)
+    fig.colorbar(cf, ax=list(axes), label="boost [dB]", shrink=0.95, aspect=18)
     return fig
 
 
