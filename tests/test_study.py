@@ -19,7 +19,8 @@ import numpy as np
 import pytest
 
 from simloop.cli import main
-from simloop.report_html import SECTIONS, cut_list, register_section, render_report, summary_dict
+from simloop.report_html import (SECTIONS, cut_list, format_summary, register_section, render_report,
+                                 summary_dict)
 from simloop.report_plots import (boost_figure, coverage_figure, length_text, loop_drawing_figure,
                                    pattern_figure, placement_figure)
 from simloop.plot_style import report_style
@@ -376,3 +377,12 @@ def test_notebook_study_takes_a_path(tmp_path):
     with pytest.raises(SpecError) as err:
         simloop.study(tmp_path / "missing.toml")
     assert "missing.toml" in str(err.value)
+
+
+def test_text_summary_stays_short(study):
+    """The terminal summary: a line per tap plus gaps, boost, nulls and verdict, nothing more."""
+    text = format_summary(study)
+    lines = text.splitlines()
+    assert len(lines) <= len(study.sweep.tap_turns) + 5
+    assert any(line.startswith("  boost: best") for line in lines)
+    assert any(line.startswith("  deepest nulls at 1000 kHz: loop") for line in lines)
