@@ -9,6 +9,8 @@ Notebook API::
     check = simloop.validate(spec, result)  # ValidationResult
     link = simloop.couple(spec, result)     # CoupleResult: boost, placement, loop-radio 2-port
     nulls = simloop.pattern(spec, result)   # PatternResult: receive patterns and their nulls
+    whole = simloop.study(spec)             # StudyResult: all of the above sharing every solve
+    simloop.report_html.write_report(whole, pathlib.Path("out"))  # report.html
 """
 
 from simloop.errors import SimloopError, SolverError, SpecError, ValidityWarning
@@ -60,6 +62,17 @@ def pattern(spec, sweep=None, **kwargs):
     return run_pattern(spec, sweep, **kwargs)
 
 
+def study(spec, **kwargs):
+    """Sweep, tune, validate, couple and pattern in one pass sharing every MoM solve; a spec or
+    a spec file's path. See :func:`simloop.studies.run_study` for the keywords (``workers``,
+    ``cache``, ``band``, ``field_v_per_m``, ``convergence``)."""
+    from simloop.studies import run_study
+
+    if not hasattr(spec, "taps"):  # a path: load it, and digest the file as read
+        spec = load(spec)
+    return run_study(spec, **kwargs)
+
+
 def validate(spec, sweep_result, **kwargs):
     """MoM against the quasi-static model and handbook formulas. See :func:`simloop.validation.run_validate`."""
     from simloop.validation import run_validate
@@ -67,4 +80,4 @@ def validate(spec, sweep_result, **kwargs):
     return run_validate(spec, sweep_result, **kwargs)
 
 
-__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "couple", "load", "pattern", "sweep", "tune", "validate"]
+__all__ = ["SimloopError", "SolverError", "SpecError", "ValidityWarning", "__version__", "couple", "load", "pattern", "study", "sweep", "tune", "validate"]

@@ -251,15 +251,18 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
 
 
 def cmd_study(args, spec=None, source_text=None) -> int:
-    """Sweep, tune and validate in one pass sharing every solve; all outputs plus report.html."""
+    """Sweep, tune, validate, couple and pattern in one pass sharing every solve; all outputs
+    plus report.html."""
     from tqdm import tqdm
 
     from simloop.report import output_set, write_json, write_sweep
+    from simloop.report_couple import write_couple
     from simloop.report_html import format_summary, summary_dict, write_report
+    from simloop.report_pattern import write_pattern
     from simloop.report_tune import write_tune
     from simloop.report_validate import write_validate
     from simloop.spec import load
-    from simloop.study import run_study
+    from simloop.studies import run_study
 
     band, field = _tune_options(args)
     spec = spec or load(args.spec)
@@ -276,8 +279,12 @@ def cmd_study(args, spec=None, source_text=None) -> int:
     summary = summary_dict(result, out)
     with output_set(out, "study", {"name": spec.name}) as (stage, paths):
         writers = [lambda: write_sweep(result.sweep, stage, z0=args.z0), lambda: write_tune(result.tune, stage),
-                   lambda: write_validate(result.validation, stage), lambda: [write_report(result, stage)],
-                   lambda: [write_json(stage / "study.json", summary)]]
+                   lambda: write_validate(result.validation, stage)]
+        if result.couple is not None:
+            writers.append(lambda: write_couple(result.couple, stage, z0=args.z0))
+        if result.pattern is not None:
+            writers.append(lambda: write_pattern(result.pattern, stage))
+        writers += [lambda: [write_report(result, stage)], lambda: [write_json(stage / "study.json", summary)]]
         for write in tqdm(writers, desc="writing outputs", unit="file set", leave=False, disable=not show):
             write()
     if args.format == "json":
@@ -287,7 +294,16 @@ def cmd_study(args, spec=None, source_text=None) -> int:
     elif not args.quiet:
         print(format_summary(result, out))
         print(f"wrote {len(paths)} files to {out}/")
-    return _solve_failures(args, result.sweep)
+    return max(_solve_failures(args, result.sweep), _stage_failures(args, result))
+
+
+def _stage_failures(args, result) -> int:
+    """Report study stages that failed (their section in the report says so); exit status 1 for
+    them unless --keep-going."""
+    for f in result.failures:
+        print(f"simloop: the {f.stage} stage failed: {f.reason}; report.html says so and the other "
+              f"results are written", file=sys.stderr)
+    return 1 if result.failures and not getattr(args, "keep_going", False) else 0
 
 
 def cmd_couple(args, spec=None, sweep=None) -> int:
@@ -573,7 +589,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_pattern)
 
     p = sub.add_parser("study", parents=[debug],
-                       help="sweep, tune and validate in one pass; all outputs plus report.html")
+                       help="sweep, tune, validate, couple and pattern in one pass; all outputs plus report.html")
     common(p)
     study_options(p)
     p.set_defaults(func=cmd_study)

@@ -89,8 +89,8 @@ def _cell(text: str, trusted: bool = True, cls: str = "") -> str:
     return f'<td class="{classes}">{text}</td>' if classes else f"<td>{text}</td>"
 
 
-def _table(header: list[str], rows: list[str], cls: str = "") -> str:
-    head = "".join(f'<th class="{"text" if i == 0 else ""}">{h}</th>' for i, h in enumerate(header))
+def _table(header: list[str], rows: list[str], cls: str = "", text_cols: tuple[int, ...] = (0,)) -> str:
+    head = "".join(f'<th class="{"text" if i in text_cols else ""}">{h}</th>' for i, h in enumerate(header))
     return (f'<table class="{cls}"><thead><tr>{head}</tr></thead><tbody>' + "".join(rows)
             + "</tbody></table>")
 
@@ -318,6 +318,185 @@ def section_coverage(result) -> str | None:
 
 
 # ------------------------------------------------------------------------------------------------
+# Section: boost at the radio
+# ------------------------------------------------------------------------------------------------
+
+
+def _failed(result, stage: str) -> str | None:
+    """The section's text for a stage that failed (None when it did not)."""
+    r = result.results.get(stage)
+    from simloop.studies import StageFailure
+
+    if isinstance(r, StageFailure):
+        return (f'<p class="unreliable"><strong>Not computed:</strong> {esc(r.reason)}. The other results '
+                "stand; rerun the study to retry (finished solves are cached).</p>")
+    return None
+
+
+def _rod_text(c, system: str) -> str:
+    from simloop.report_plots import length_text
+
+    rod = c.rod
+    err = rod.inductance_error or 0.0
+    l_text = f"{rod.inductance_h * 1e6:.0f} µH" + (f" ± {err:.0%}" if err else "")
+    where = ", ".join(f"{a} {_signed(v, system)}" for a, v in zip("xyz", c.position_m))
+    src = "measured" if rod.inductance_source != "computed" else "computed from the rod model"
+    return (f"<p>Radio{' (assumed: no [receiver] in the spec)' if c.receiver_assumed else ''}: ferrite rod "
+            f"{length_text(rod.length_m, system)} × {length_text(rod.diameter_m, system)}, μi {rod.permeability:g} "
+            f"(apparent μ of the rod {rod.rod_permeability:.1f}), coil {rod.turns} turns, loaded Q {rod.loaded_q:g}, "
+            f"coil inductance {_span(l_text, err < 0.05)} ({src}); rod centre at {esc(where)} from the frame "
+            "centre. Boost is the voltage at the radio's tuning capacitor with the loop beside it over "
+            "that without, the radio re-peaked each time (and, alone, turned for its best reception).</p>")
+
+
+def _signed(value_m: float, system: str) -> str:
+    """A coordinate in the spec's units with its sign (− as the minus sign)."""
+    from simloop.report_plots import length_text
+
+    return ("−" if value_m < 0 else "+") + length_text(abs(value_m), system)
+
+
+def _span(text: str, trusted: bool) -> str:
+    return text if trusted else f'<span class="untrusted">{text}</span>'
+
+
+def _boost_rows(result) -> list[str]:
+    from simloop.report_plots import best_spot_at_edge, length_text
+
+    c, sys = result.couple, result.spec.length_system
+    tap = c.tap_turns[c.tap_index]
+    top = int(np.nanargmax(c.capacitor_boost_db))
+    width = (f"{c.capacitor_width_f * 1e12:.2f} pF" if np.isfinite(c.capacitor_width_f) else "not resolved")
+    if np.isfinite(c.capacitor_width_m):
+        width += f" = {c.capacitor_width_m * 1e3:.1f} mm of slide travel"
+    p = c.best_position_m
+    edge = best_spot_at_edge(c)
+    spot = (f"rod centre at x {_signed(p[0], sys)}, y {_signed(p[1], sys)} from the frame centre, "
+            f"rod turned {c.best_orientation_deg:g}° from the loop axis")
+    rows = [
+        ("capacitor-setting peak", f"{c.capacitor_boost_db[top]:.1f} dB at {c.capacitor_f[top] * 1e12:.1f} pF "
+                                   f"(the loop alone tunes at {c.loop_capacitance_f * 1e12:.1f} pF)", True),
+        ("width of that peak (−3 dB)", width, bool(np.isfinite(c.capacitor_width_f))),
+        ("optimum spacing along the loop axis",
+         f"{length_text(c.optimum_spacing_m, sys, both=True)}: {c.optimum_spacing_boost_db:.1f} dB"
+         + (" (the closest the model allows; it still rises there)" if c.optimum_at_near_limit else ""),
+         not c.optimum_at_near_limit),
+        ("best spot in the table plane", f"{spot}: {c.best_boost_db:.1f} dB"
+         + (" (borders the zone too close to the wire)" if edge else ""), not edge),
+        ("coupling at the radio's position", f"k = {c.coupling_k[c.tap_index]:+.5f}; critical k "
+                                             f"{c.critical_k:.5f}", True),
+    ]
+    out = [f'<tr><td class="text">{esc(a)}</td>{_cell(esc(b), ok, "text")}</tr>' for a, b, ok in rows]
+    return [f'<tr><th class="text" colspan="2">at {c.frequency_hz / 1e3:.0f} kHz, tap {tap}</th></tr>'] + out
+
+
+def section_boost(result) -> str | None:
+    failed = _failed(result, "couple")
+    if failed is not None:
+        return failed
+    c = result.couple
+    if c is None:
+        return None
+    from simloop.report_plots import plot_boost, plot_placement
+
+    t, sys = result.tune, result.spec.length_system
+    plates = t is not None and t.tuner.has_position
+    ok = np.isfinite(c.boost_db)
+    parts = [_rod_text(c, sys)]
+    if ok.any():
+        parts.append(f"<p>Over the band the loop adds {np.nanmin(c.boost_db):.1f} to {np.nanmax(c.boost_db):.1f} dB "
+                     f"({int(ok.sum())} of {ok.size} channels tuned by some tap) and pulls the radio's dial by up "
+                     f"to {np.nanmax(np.abs(c.pull_hz)):.0f} Hz.</p>")
+    parts.append(_figure(plot_boost(c, t, sys, plates), "boost against frequency, capacitor and spacing",
+                         "Top: boost per channel (dotted line: the frequency of the studies below). Bottom left: "
+                         "the loop's capacitor turned through its peak (shaded: within 3 dB). Bottom right: the "
+                         "radio moved straight out along the loop axis (★ the optimum; hatched: too close to the "
+                         "wire for the model)."))
+    parts.append('<table class="spec"><tbody>' + "".join(_boost_rows(result)) + "</tbody></table>")
+    parts.append(_figure(plot_placement(c), "placement maps of the radio in the table plane",
+                         f"Boost in the plane z = {c.map_z_m:+.2f} m (the bottom of the frame) with the rod "
+                         "turned 0°, 45° and 90° from the loop axis (white bar, lower left). The loop's winding seen from above in grey; white "
+                         "dashes: the coupling changes sign (no boost there); blank: too close to the wire for "
+                         "the model; □ the radio where the spec puts it, seen from above; ★ the best spot."))
+    if c.notes:
+        parts.append("<ul>" + "".join(f"<li>{esc(n)}</li>" for n in c.notes) + "</ul>")
+    parts.append("<p>With a real radio: tune it to a weak station, then turn the loop's capacitor slowly "
+                 "through the peak (it is only as wide as the table says). Closer is not always better: if "
+                 "the signal drops or the radio's tuning jumps as you move it in, it is over-coupled; move "
+                 "it back.</p>")
+    return "".join(parts)
+
+
+# ------------------------------------------------------------------------------------------------
+# Section: patterns and nulls
+# ------------------------------------------------------------------------------------------------
+
+
+def _pattern_trust(result) -> tuple[dict, bool]:
+    """Per response whether its model is trusted, and whether the tuning capacitance is inside
+    the tuner's range (outside: the pattern assumes a capacitor that reaches)."""
+    from simloop.tuner import tuner_from_spec
+
+    p = result.pattern
+    trusted = {k: not str(p.models.get(k, "")).endswith("below-floor") for k in p.response_db}
+    tuner = tuner_from_spec(result.spec.tuner)
+    return trusted, bool(tuner.min_f <= p.capacitance_f <= tuner.max_f)
+
+
+def _null_rows(p, trusted: dict) -> list[str]:
+    from simloop.patterns import DEPTH_FLOOR_DB
+    from simloop.report_pattern import cause_text
+
+    rows = []
+    order = {k: i for i, k in enumerate(p.response_db)}
+    for n in sorted(p.nulls, key=lambda n: (order.get(n.of, 99), n.elevation_deg, n.azimuth_deg)):
+        ok = trusted.get(n.of, True)
+        depth = f"{n.depth_db:.1f}" if n.depth_db > DEPTH_FLOOR_DB else f"exact (&lt; {DEPTH_FLOOR_DB:.0f})"
+        rows.append(f'<tr><td class="text">{esc(n.of)}</td><td>{n.elevation_deg:g}</td><td>{n.azimuth_deg:.1f}</td>'
+                    f'{_cell(depth, ok)}<td class="text">{esc(cause_text(n))}</td></tr>')
+    return rows
+
+
+def section_pattern(result) -> str | None:
+    failed = _failed(result, "pattern")
+    if failed is not None:
+        return failed
+    p = result.pattern
+    if p is None:
+        return None
+    from simloop.report_pattern import MODELS, note_text
+    from simloop.report_plots import RESPONSE_LABELS, plot_pattern
+
+    trusted, in_range = _pattern_trust(result)
+    cap = _span(f"{p.capacitance_f * 1e12:.1f} pF", in_range)
+    parts = [f"<p>At {p.frequency_hz / 1e3:.0f} kHz, {esc(p.polarization)} polarisation, tap {p.tap_turns} tuned "
+             f"with {cap}" + ("" if in_range else " (outside the tuner's range: the pattern assumes a capacitor "
+                                                 "that reaches)")
+             + f"; {p.loop_volts_per_v_m:.3g} V on the capacitor per V/m at the loop's maximum. Azimuth from "
+             "the loop's plane (+x) towards its axis (+y); each response relative to its own maximum.</p>"]
+    items = [f"<li>{esc(RESPONSE_LABELS.get(k, k))}: {_span(esc(MODELS.get(m, m)), trusted.get(k, True))}</li>"
+             for k, m in p.models.items()]
+    parts.append("<ul>" + "".join(items) + "</ul>")
+    parts.append(_figure(plot_pattern(p, trusted), "polar receive patterns with their nulls",
+                         "Rings every 10 dB down to −40 dB; each null marked with its depth (a thin line and "
+                         "“?”: the response is not trusted there).", width_mm=None))
+    if p.nulls:
+        parts.append("<h3>Nulls and what fills them</h3>")
+        parts.append(_table(["response", "elevation [°]", "azimuth [°]", "depth [dB]", "what limits the depth"],
+                            _null_rows(p, trusted), cls="nulls", text_cols=(0, 4)))
+    else:
+        parts.append("<p>No null deeper than the finder's threshold in these cuts.</p>")
+    notes = [note_text(c) for c in p.notes]
+    if notes:
+        parts.append("<ul>" + "".join(f"<li>{esc(n)}</li>" for n in notes) + "</ul>")
+    parts.append("<p>To null an interfering station, point the loop's axis (the face of the frame) at it and "
+                 "turn slowly: the null is narrow. A null filled to −20 to −30 dB is the loop's antenna effect: "
+                 "shorten and pair the tuner leads and keep the radio out of the loop's electric field. A sky "
+                 "wave at night fills the null whatever you do.</p>")
+    return "".join(parts)
+
+
+# ------------------------------------------------------------------------------------------------
 # Section: validation
 # ------------------------------------------------------------------------------------------------
 
@@ -429,6 +608,16 @@ def section_assumptions(result) -> str:
             worst = float(np.max(t.model_error.max_relative_error))
             items.append(f"The fitted model differs from direct MoM solves it was not fitted to by at most "
                          f"{worst:.2%} (|Z|).")
+    if result.couple is not None:
+        items.append("Boost and placement: the loop's currents are the quasi-static ones of its wire path, "
+                     "scaled by the sweep model's winding current per port current; the ferrite rod is an "
+                     "analytic model (fluxmetric demagnetisation, Chen, Brug & Goldfarb 1991); the radio's "
+                     "case, a hand and the table are not modelled; the wave arrives in the loop's plane, "
+                     "vertically polarised.")
+    if result.pattern is not None:
+        items.append("Patterns: by reciprocity from the far field of one MoM solve at the pattern frequency; "
+                     "the null causes come from the loop's fitted magnetic and electric dipole moments (free "
+                     "space only).")
     if sw.window_note:
         items.append(esc(sw.window_note))
     return "<ul>" + "".join(f"<li>{x}</li>" for x in items) + "</ul>"
@@ -465,8 +654,11 @@ def section_provenance(result) -> str:
                    f"scikit-rf {v.get('scikit-rf')}, matplotlib {v.get('matplotlib')}, Python {v.get('python')}"),
         ("run", f"started {result.started_utc}, {result.seconds:.1f} s "
                 + "(" + ", ".join(f"{k} {s:.1f} s" for k, s in result.stage_seconds.items()) + ")"),
-        ("solves", f"{new} MoM factorisations, {fact['shared']} re-used within the study, "
-                   f"{sum(1 for e in result.solve_log if e.how == 'disk')} from the cache"),
+        ("solves", f"{new} MoM factorisations ("
+                   + ", ".join(f"{k} {n}" for k, n in fact["per_stage"].items())
+                   + f"), {fact['shared']} results re-used within the study, "
+                   f"{sum(1 for e in result.solve_log if e.how == 'disk')} from the cache, "
+                   f"{len(fact['refactorised'])} frequencies factorised twice"),
     ]
     body = "".join(f'<tr><th class="text">{esc(a)}</th><td class="text">{esc(b)}</td></tr>' for a, b in rows)
     return f"<table><tbody>{body}</tbody></table>"
@@ -477,6 +669,8 @@ def section_provenance(result) -> str:
 SECTIONS: list[tuple[str, str, object]] = [
     ("loop", "The loop as built", section_loop),
     ("coverage", "Band coverage and channel chart", section_coverage),
+    ("boost", "Boost at the radio", section_boost),
+    ("pattern", "Patterns and nulls", section_pattern),
     ("validation", "Validation", section_validation),
     ("assumptions", "Assumptions and limits", section_assumptions),
     ("safety", "Safety", section_safety),
@@ -572,19 +766,72 @@ def summary_validation(result) -> dict | None:
     return {"verdict": {"status": v.verdict.status, "reasons": list(v.verdict.reasons)}}
 
 
+def summary_couple(result) -> dict | None:
+    """Best boost and where (position, rod axis and orientation), the optimum spacing, the
+    boost over the band; each with the flag that says whether it sits at the model's limit."""
+    from simloop.report_plots import best_spot_at_edge
+
+    if "couple" not in result.results:
+        return None
+    c = result.couple
+    if c is None:
+        return {"boost": {"failed": result.results["couple"].reason}}
+    ok = np.isfinite(c.boost_db)
+    return {"boost": {
+        "frequency_hz": c.frequency_hz, "tap": int(c.tap_turns[c.tap_index]),
+        "best": {"boost_db": _finite_or_none(c.best_boost_db), "position_m": [float(v) for v in c.best_position_m],
+                 "axis": [float(v) for v in c.best_axis], "orientation_deg": float(c.best_orientation_deg),
+                 "at_near_wire_limit": best_spot_at_edge(c)},
+        "optimum_spacing": {"distance_m": _finite_or_none(c.optimum_spacing_m),
+                            "boost_db": _finite_or_none(c.optimum_spacing_boost_db),
+                            "at_near_limit": bool(c.optimum_at_near_limit)},
+        "capacitor_peak_width_f": _finite_or_none(c.capacitor_width_f),
+        "capacitor_peak_width_travel_m": _finite_or_none(c.capacitor_width_m),
+        "band_boost_db": [_finite_or_none(np.nanmin(c.boost_db)), _finite_or_none(np.nanmax(c.boost_db))]
+        if ok.any() else None,
+        "receiver_assumed": bool(c.receiver_assumed)}}
+
+
+def summary_pattern(result) -> dict | None:
+    """The deepest null of each response (loop, receiver, system, ... as the pattern has them)."""
+    from simloop.patterns import DEPTH_FLOOR_DB
+
+    if "pattern" not in result.results:
+        return None
+    p = result.pattern
+    if p is None:
+        return {"nulls": {"failed": result.results["pattern"].reason}}
+    trusted, in_range = _pattern_trust(result)
+    deepest = {}
+    for name in p.response_db:
+        mine = [n for n in p.nulls if n.of == name]
+        if not mine:
+            deepest[name] = None
+            continue
+        n = min(mine, key=lambda n: n.depth_db)
+        deepest[name] = {"azimuth_deg": float(n.azimuth_deg), "elevation_deg": float(n.elevation_deg),
+                         "depth_db": float(n.depth_db), "exact": bool(n.depth_db <= DEPTH_FLOOR_DB),
+                         "cause": n.cause, "trusted": bool(trusted[name])}
+    return {"nulls": {"frequency_hz": p.frequency_hz, "polarization": p.polarization, "tap": int(p.tap_turns),
+                      "capacitance_in_tuner_range": in_range, "deepest": deepest}}
+
+
 #: Parts of the JSON summary, in order: functions ``result -> dict | None`` whose keys are merged
 #: into the summary (a new study adds its headline numbers with one entry here).
-SUMMARIES: list = [summary_tune, summary_validation]
+SUMMARIES: list = [summary_tune, summary_couple, summary_pattern, summary_validation]
 
 
 def summary_dict(result, out: Path | None = None) -> dict:
-    """The study's headline numbers for scripts: coverage, gaps, verdict, solves, files."""
+    """The study's headline numbers for scripts: coverage, gaps, best boost and position, optimum
+    spacing, deepest nulls, verdict, solves, files."""
     d: dict = {"name": result.spec.name, "spec_sha256": result.spec_sha256}
     for part in SUMMARIES:
         d.update(part(result) or {})
     fact = result.factorisations()
     d["solves"] = {"factorisations": fact["per_stage"], "shared": fact["shared"],
-                   "repeated": len(fact["repeated"])}
+                   "repeated": len(fact["repeated"]), "refactorised": len(fact["refactorised"])}
+    if result.failures:
+        d["failed_stages"] = {f.stage: f.reason for f in result.failures}
     d["seconds"] = result.seconds
     if out is not None:
         d["report"] = str(out / "report.html")
@@ -604,6 +851,22 @@ def format_summary(result, out: Path | None = None) -> str:
     if "gaps_hz" in d:
         gaps = ", ".join(f"{a / 1e3:.0f}–{b / 1e3:.0f} kHz" for a, b in d["gaps_hz"])
         lines.append(f"  gaps: {gaps}" if gaps else "  no gaps in the band")
+    b = d.get("boost", {})
+    if "failed" in b:
+        lines.append(f"  boost: not computed ({b['failed']})")
+    elif b:
+        best, sp = b["best"], b["optimum_spacing"]
+        x, y, _ = best["position_m"]
+        lines.append(f"  boost: best {best['boost_db']:.1f} dB at x {x:+.2f} m, y {y:+.2f} m, rod at "
+                     f"{best['orientation_deg']:g}°; optimum spacing {sp['distance_m'] * 100:.0f} cm "
+                     f"({sp['boost_db']:.1f} dB{', closest allowed' if sp['at_near_limit'] else ''})")
+    nl = d.get("nulls", {})
+    if "failed" in nl:
+        lines.append(f"  pattern: not computed ({nl['failed']})")
+    elif nl:
+        parts = [f"{k} {v['depth_db']:.0f} dB at {v['azimuth_deg']:.0f}°" if not v["exact"] else f"{k} exact"
+                 for k, v in nl["deepest"].items() if v is not None]
+        lines.append(f"  deepest nulls at {nl['frequency_hz'] / 1e3:.0f} kHz: " + (", ".join(parts) or "none"))
     if "verdict" in d:
         status, reasons = d["verdict"]["status"], d["verdict"]["reasons"]
         if status == "ok" or not reasons:

@@ -11,10 +11,11 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from simloop.geometry import DROP, RUN, WINDING
-from simloop.plot_style import (ACCENT, INK, MUTED, WARN, figure, report_style, tap_style, to_svg,
+from simloop.plot_style import (ACCENT, INK, MUTED, TAP_COLOURS, WARN, figure, report_style, tap_style, to_svg,
                                 untrusted_style)
 
-__all__ = ["length_text", "plot_coverage", "plot_loop_drawing", "plot_slide_scale"]
+__all__ = ["best_spot_at_edge", "boost_figure", "length_text", "pattern_figure", "placement_figure", "plot_boost",
+           "plot_coverage", "plot_loop_drawing", "plot_pattern", "plot_placement", "plot_slide_scale"]
 
 #: Width of a full-width figure in the report (A4 text width with 18 mm margins). [mm]
 FULL_WIDTH_MM = 170.0
@@ -335,3 +336,243 @@ def slide_scale_figure(r) -> tuple[Figure, float, float]:
             last = x
     ax.set_title("slide scale: channel carriers in kHz (grey dotted: model not trusted)")
     return fig, width_mm, scale
+
+
+# ------------------------------------------------------------------------------------------------
+# Boost at the radio
+# ------------------------------------------------------------------------------------------------
+
+
+def _boost_band(ax, c, tune):
+    """Boost per channel, one line per tap; hollow markers where the tuning chart is not trusted."""
+    f_k = np.asarray(c.frequencies_hz) / 1e3
+    reliable = np.asarray(tune.reliable, dtype=bool) if tune is not None else np.ones(f_k.size, bool)
+    for i, n in enumerate(c.tap_turns):
+        st = tap_style(i)
+        sel = (np.asarray(c.channel_tap) == i) & np.isfinite(c.boost_db)
+        if not sel.any():
+            continue
+        good, bad = sel & reliable, sel & ~reliable
+        ax.plot(f_k[sel], c.boost_db[sel], color=st["color"], ls=st["linestyle"], lw=1.0,
+                label=f"tap {n} (k = {c.coupling_k[i]:+.4f})")
+        ax.plot(f_k[good], c.boost_db[good], st["marker"], color=st["color"], ms=2.6, ls="none")
+        ax.plot(f_k[bad], c.boost_db[bad], ms=3.0, **untrusted_style(i))
+    if np.any(~reliable & np.isfinite(c.boost_db)):
+        ax.plot([], [], ms=3.0, label="tuning not trusted here", **untrusted_style(0))
+    ax.axvline(c.frequency_hz / 1e3, color=MUTED, lw=0.6, ls=(0, (1, 1.5)))
+    ax.set_xlabel("frequency [kHz]")
+    ax.set_ylabel("boost [dB]")
+    ax.set_title("boost at the radio, loop tuned per channel with the chart's tap")
+    ax.legend(loc="lower right", ncol=2)
+    finite = c.boost_db[np.isfinite(c.boost_db)]
+    if finite.size:
+        lo, hi = float(finite.min()), float(finite.max())
+        pad = max(1.0, 0.15 * (hi - lo))
+        ax.set_ylim(lo - pad, hi + pad)
+
+
+def _capacitor_peak(ax, c, tuner_has_position: bool):
+    """Boost against the loop's capacitor at the study frequency, the −3 dB span shaded."""
+    cap = c.capacitor_f * 1e12
+    ax.plot(cap, c.capacitor_boost_db, color=INK, lw=1.1)
+    top = int(np.nanargmax(c.capacitor_boost_db))
+    peak = float(c.capacitor_boost_db[top])
+    inside = c.capacitor_boost_db >= peak - 3.0
+    if np.isfinite(c.capacitor_width_f):
+        ax.axvspan(cap[inside].min(), cap[inside].max(), color=ACCENT, alpha=0.12, lw=0)
+        width = f"−3 dB: {c.capacitor_width_f * 1e12:.2f} pF"
+        if tuner_has_position and np.isfinite(c.capacitor_width_m):
+            width += f" = {c.capacitor_width_m * 1e3:.1f} mm of slide"
+    else:
+        width = "−3 dB width not resolved"
+    ax.axhline(peak - 3.0, color=MUTED, lw=0.6, ls=(0, (4, 2)))
+    ax.axvline(c.loop_capacitance_f * 1e12, color=MUTED, lw=0.8, ls=(0, (1, 1.5)),
+               label=f"loop tuned alone: {c.loop_capacitance_f * 1e12:.1f} pF")
+    ax.plot([cap[top]], [peak], "v", color=INK, ms=4, label=f"peak {peak:.1f} dB at {cap[top]:.1f} pF\n{width}")
+    ax.legend(loc="best", fontsize=6.5, handlelength=1.0, frameon=False)
+    ax.set_xlabel("loop tuning capacitor [pF]")
+    ax.set_ylabel("boost [dB]")
+    ax.set_title(f"the capacitor's peak at {c.frequency_hz / 1e3:.0f} kHz, tap {c.tap_turns[c.tap_index]}")
+
+
+def _spacing(ax, c, system: str):
+    """Boost with the radio moved straight out along the loop axis; the optimum starred."""
+    d_cm = c.distance_m * 100
+    ax.plot(d_cm, c.distance_boost_db, color=INK, lw=1.1)
+    refused = ~np.isfinite(c.distance_boost_db)
+    if refused.any():
+        ax.axvspan(d_cm[0], d_cm[refused].max(), facecolor="none", hatch="////", edgecolor=WARN, lw=0)
+        ax.text(d_cm[refused].max(), ax.get_ylim()[0], " too close for the model", rotation=90, fontsize=6.5,
+                color=WARN, va="bottom", ha="left")
+    style = dict(marker="*", ms=9, ls="none")
+    if c.optimum_at_near_limit:
+        style.update(markerfacecolor="white", markeredgecolor=INK)
+    else:
+        style.update(color=INK)
+    ax.plot([c.optimum_spacing_m * 100], [c.optimum_spacing_boost_db], **style)
+    word = "at the closest the model allows" if c.optimum_at_near_limit else "optimum"
+    ax.lines[-1].set_label(f"{word}: {length_text(c.optimum_spacing_m, system)}, {c.optimum_spacing_boost_db:.1f} dB")
+    ax.legend(loc="best", fontsize=6.5, handlelength=1.0, frameon=False)
+    ax.set_xlabel("rod centre's distance along the loop axis [cm]")
+    ax.set_ylabel("boost [dB]")
+    ax.set_title("spacing along the loop axis")
+
+
+def plot_boost(c, tune, system: str = "metric", plates: bool = False) -> str:
+    """Boost against frequency, against the loop's capacitor and against spacing, as SVG."""
+    with report_style():
+        return to_svg(boost_figure(c, tune, system, plates))
+
+
+def boost_figure(c, tune, system: str = "metric", plates: bool = False) -> Figure:
+    """The boost figure (see :func:`plot_boost`). Call inside :func:`report_style`."""
+    fig = figure(FULL_WIDTH_MM, 125)
+    grid = fig.add_gridspec(2, 2, height_ratios=[1.0, 1.0])
+    _boost_band(fig.add_subplot(grid[0, :]), c, tune)
+    _capacitor_peak(fig.add_subplot(grid[1, 0]), c, plates)
+    _spacing(fig.add_subplot(grid[1, 1]), c, system)
+    return fig
+
+
+def best_spot_at_edge(c) -> bool:
+    """Whether the map's best spot borders the area refused as too close to the wire (a NaN
+    among its eight neighbours), i.e. nearer may be better or worse than the model can say."""
+    from simloop.coupling import MAP_ORIENTATIONS_DEG
+
+    o = MAP_ORIENTATIONS_DEG.index(c.best_orientation_deg)
+    ix = int(np.argmin(np.abs(c.map_x_m - c.best_position_m[0])))
+    iy = int(np.argmin(np.abs(c.map_y_m - c.best_position_m[1])))
+    window = c.map_boost_db[o, max(iy - 1, 0):iy + 2, max(ix - 1, 0):ix + 2]
+    return bool(np.isnan(window).any())
+
+
+def plot_placement(c) -> str:
+    """The placement maps, one per rod orientation, as SVG."""
+    with report_style():
+        return to_svg(placement_figure(c))
+
+
+def placement_figure(c) -> Figure:
+    """Boost over the table plane for each rod orientation: monotone-lightness colour scale with
+    labelled contours (reads in grey), the loop's winding from above, the best spot starred.
+    Call inside :func:`report_style`."""
+    from matplotlib.patches import Rectangle
+
+    from simloop.coupling import MAP_ORIENTATIONS_DEG
+
+    n = len(MAP_ORIENTATIONS_DEG)
+    fig = figure(FULL_WIDTH_MM, 64)
+    axes = fig.subplots(1, n, sharey=True)
+    finite = c.map_boost_db[np.isfinite(c.map_boost_db)]
+    vmin, vmax = (float(np.percentile(finite, 5)), float(finite.max())) if finite.size else (0.0, 1.0)
+    step = 3.0 if vmax - vmin > 12 else 1.0
+    levels = np.arange(np.floor(vmin / step) * step, np.ceil(vmax / step) * step + step / 2, step)
+    xx, yy = np.meshgrid(c.map_x_m, c.map_y_m)
+    best = MAP_ORIENTATIONS_DEG.index(c.best_orientation_deg)
+    (x0, x1), (y0, y1) = c.footprint_m
+    for o, ax in enumerate(axes):
+        db = np.clip(c.map_boost_db[o], levels[0], None)
+        cf = ax.contourf(xx, yy, db, levels=levels, cmap="cividis")
+        cs = ax.contour(xx, yy, db, levels=levels[1::2], colors=INK, linewidths=0.4)
+        ax.clabel(cs, fmt="%.0f", fontsize=6)
+        k = c.map_k[o]
+        if np.nanmin(k) < 0 < np.nanmax(k):
+            ax.contour(xx, yy, k, levels=[0.0], colors="white", linewidths=0.9, linestyles=[(0, (3, 2))])
+        ax.add_patch(Rectangle((x0, y0), x1 - x0, max(y1 - y0, 0.01), facecolor=MUTED, edgecolor=INK, lw=0.6))
+        ax.plot([c.position_m[0]], [c.position_m[1]], "s", mfc="none", mec="white", mew=1.0, ms=5)
+        if o == best:
+            ax.plot([c.best_position_m[0]], [c.best_position_m[1]], "*", color=INK, mec="white", mew=0.7, ms=11)
+        th = np.radians(MAP_ORIENTATIONS_DEG[o])
+        u = 0.06 * np.array([np.sin(th), np.cos(th)])
+        ax.annotate("", xy=(0.14 + u[0], 0.14 + u[1]), xytext=(0.14 - u[0], 0.14 - u[1]),
+                    xycoords="axes fraction", arrowprops=dict(arrowstyle="-", lw=3.0, color="white"))
+        ax.set_title(f"rod at {MAP_ORIENTATIONS_DEG[o]:g}°" + ("  (★ best)" if o == best else ""))
+        ax.set_xlabel("x, across the frame [m]")
+        ax.set_aspect("equal")
+        ax.grid(False)
+    axes[0].set_ylabel("y, along the loop axis [m]")
+    fig.colorbar(cf, ax=list(axes), label="boost [dB]", shrink=0.95, aspect=18)
+    return fig
+
+
+# ------------------------------------------------------------------------------------------------
+# Patterns and nulls
+# ------------------------------------------------------------------------------------------------
+
+#: The pattern's dB floor in the report's polar plots: rings from here to 0 dB. [dB]
+PATTERN_FLOOR_DB = -40.0
+
+#: How each response is drawn, told apart in grey by dash and width as well as colour; a
+#: response not listed here takes the next of :data:`_EXTRA_RESPONSES`.
+RESPONSE_STYLE = {
+    "loop": {"color": INK, "ls": "-", "lw": 1.3, "marker": "v"},
+    "receiver": {"color": TAP_COLOURS[1], "ls": (0, (5, 2)), "lw": 1.1, "marker": "^"},
+    "system": {"color": TAP_COLOURS[0], "ls": (0, (1, 1.2)), "lw": 1.6, "marker": "s"},
+}
+_EXTRA_RESPONSES = ({"color": TAP_COLOURS[3], "ls": "-.", "lw": 1.1, "marker": "D"},
+                    {"color": TAP_COLOURS[4], "ls": (0, (6, 1, 1, 1)), "lw": 1.1, "marker": "o"})
+RESPONSE_LABELS = {"loop": "loop (voltage on its tuned capacitor)", "receiver": "radio's rod alone",
+                   "system": "loop + radio"}
+
+
+def response_style(name: str, order: int = 0) -> dict:
+    """Line style of a pattern response (known names fixed; others by their order)."""
+    return RESPONSE_STYLE.get(name, _EXTRA_RESPONSES[order % len(_EXTRA_RESPONSES)])
+
+
+def _polar_panel(ax, p, i, trusted: dict):
+    from simloop.patterns import DEPTH_FLOOR_DB
+
+    span = -PATTERN_FLOOR_DB
+    phi = np.radians(np.append(p.azimuth_deg, p.azimuth_deg[0] + 360.0))
+    el = p.elevation_deg[i]
+    for k, (name, db) in enumerate(p.response_db.items()):
+        st = response_style(name, k)
+        r = np.maximum(np.append(db[i], db[i][0]), PATTERN_FLOOR_DB) + span
+        ax.plot(phi, r, color=st["color"], ls=st["ls"], lw=st["lw"] if trusted[name] else 0.7,
+                label=RESPONSE_LABELS.get(name, name) + ("" if trusted[name] else " (not trusted)"))
+    for k, name in enumerate(p.response_db):
+        st = response_style(name, k)
+        for x in (x for x in p.nulls if x.of == name and x.elevation_deg == el):
+            r = max(x.depth_db, PATTERN_FLOOR_DB) + span
+            a = np.radians(x.azimuth_deg)
+            ax.plot([a], [r], st["marker"], color=st["color"], mfc="white", mew=0.8, ms=4.5)
+            text = f"{x.depth_db:.0f} dB".replace("-", "−") if x.depth_db > DEPTH_FLOOR_DB else "exact"
+            side = 1 if k % 2 == 0 else -1
+            ax.annotate(text + ("?" if not trusted[name] else ""), (a, r),
+                        xytext=(a + side * np.radians(16), 0.45 * span + 4 * k), fontsize=6.5,
+                        color=st["color"], ha="center", va="center",
+                        bbox=dict(fc="white", ec="none", pad=0.5, alpha=0.9),
+                        arrowprops=dict(arrowstyle="-", color=st["color"], lw=0.5))
+    ax.set_ylim(0, span)
+    ticks = np.arange(10.0, span + 1, 10.0)
+    ax.set_yticks(ticks, [f"{t - span:.0f} dB".replace("-", "−") for t in ticks], fontsize=6, color=MUTED)
+    ax.set_rlabel_position(202.5)
+    ax.set_xticks(np.radians(np.arange(0, 360, 45)),
+                  ["0°\nloop plane", "45°", "90°  axis", "135°", "180°", "225°", "270°", "315°"], fontsize=6.5)
+    ax.grid(True, color="#d0d0d0", lw=0.4)
+    ax.spines["polar"].set_linewidth(0.5)
+    ax.set_title(f"elevation {el:g}°", loc="center", pad=10)
+
+
+def plot_pattern(p, trusted: dict | None = None) -> str:
+    """Polar receive patterns with their nulls, one panel per elevation, as SVG."""
+    with report_style():
+        return to_svg(pattern_figure(p, trusted))
+
+
+def pattern_figure(p, trusted: dict | None = None) -> Figure:
+    """Polar patterns, every response of ``p.response_db`` (loop, receiver, system, ...) relative
+    to its own maximum, nulls marked with their depth. ``trusted``: response → bool (thin lines
+    and a "?" where not). Two panels a row. Call inside :func:`report_style`."""
+    trusted = {k: True for k in p.response_db} | (trusted or {})
+    n = p.elevation_deg.size
+    cols = min(n, 2)
+    rows = -(-n // cols)
+    fig = figure(FULL_WIDTH_MM if cols > 1 else 110.0, 82 * rows + 14)
+    axes = [fig.add_subplot(rows, cols, i + 1, projection="polar") for i in range(n)]
+    for i, ax in enumerate(axes):
+        _polar_panel(ax, p, i, trusted)
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="outside lower center", ncol=min(3, len(labels)))
+    return fig

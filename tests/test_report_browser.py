@@ -27,14 +27,20 @@ import pytest
 
 from simloop.report_html import SECTIONS, write_report
 from simloop.spec import load
-from simloop.study import run_study
+from simloop.studies import run_study
 from tests.conftest import write_spec
 from tests.test_study import SMALL_IMPERIAL
 
-#: Pages the small test report prints to at least. Measured: 8 pages (Chromium 156, Letter, the
-#: browser's default paper). The lower bound holds for A4 too and catches a layout that lost its
-#: figures or tables (a report of headings alone prints on 2).
-EXPECTED_MIN_PAGES = 5
+#: Pages the small test report prints to at least. Measured: 11 pages (Chromium, Letter, the
+#: browser's default paper; 8 before the boost and pattern sections). The lower bound holds for
+#: A4 too and catches a layout that lost its figures or tables (a report of headings alone
+#: prints on 2).
+EXPECTED_MIN_PAGES = 8
+
+#: The report's figures in order (their alt texts), one per section that has one.
+FIGURES = ["front and side views of the loop", "coverage, setting and bandwidth against frequency",
+           "boost against frequency, capacitor and spacing", "placement maps of the radio in the table plane",
+           "polar receive patterns with their nulls"]
 
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync",
@@ -129,7 +135,8 @@ def test_every_image_decodes_and_user_text_stays_text(report, tmp_path):
     assert _console(run.stderr) == []
     assert r["title"] == "small-imperial: loop study"  # the notes' script would set "PWNED"
     assert r["scripts"] == 1  # the probe alone
-    assert len(r["images"]) >= 2  # the loop drawing and the coverage figure
+    # the loop drawing, coverage, boost, placement map and the polar patterns
+    assert [i["alt"] for i in r["images"]] == FIGURES
     for img in r["images"]:
         assert img["done"] and img["w"] > 0 and img["h"] > 0 and img["shown"] > 0, img
     assert [h["text"] for h in r["headings"]] == [h for _, h, _ in SECTIONS]

@@ -128,7 +128,7 @@ LAYERS = {
     "fields": 1,
     "spec": 2, "geometry": 2, "mesh": 2, "tuner": 2, "losses": 2, "receiver": 2,
     "solve": 3, "lumped": 3, "circuit": 3, "partial": 3,
-    "impedance": 4, "tuning": 4, "validation": 4, "couple": 4, "coupling": 4, "patterns": 4, "study": 4, "explore": 4,
+    "impedance": 4, "tuning": 4, "validation": 4, "coupling": 4, "patterns": 4, "studies": 4, "explore": 4,
     "report": 5, "report_tune": 5, "report_validate": 5, "plots": 5,
     "report_html": 5, "report_couple": 5, "report_pattern": 5, "report_plots": 5, "plot_style": 5,
     "report_explore": 5,

@@ -19,11 +19,13 @@ import numpy as np
 import pytest
 
 from simloop.cli import main
-from simloop.report_html import SECTIONS, cut_list, register_section, render_report, summary_dict
-from simloop.report_plots import coverage_figure, length_text, loop_drawing_figure
+from simloop.report_html import (SECTIONS, cut_list, format_summary, register_section, render_report,
+                                 summary_dict)
+from simloop.report_plots import (boost_figure, coverage_figure, length_text, loop_drawing_figure,
+                                   pattern_figure, placement_figure)
 from simloop.plot_style import report_style
 from simloop.spec import load
-from simloop.study import run_study
+from simloop.studies import SolveLogEntry, run_study
 from tests.conftest import write_spec
 
 SMALL_IMPERIAL = """
@@ -91,7 +93,10 @@ def test_study_results_are_the_stage_results(study):
     """The study hands the same sweep to tune and validate (no second sweep)."""
     assert study.tune.inductance_h == pytest.approx(study.sweep.inductance_h, rel=1e-12, abs=0)
     assert study.validation.inductance_h == pytest.approx(study.sweep.inductance_h, rel=1e-12, abs=0)
-    assert list(study.stage_seconds) == ["sweep", "tune", "validate"]
+    assert list(study.stage_seconds) == ["pattern-solve", "sweep", "tune", "validate", "couple", "pattern"]
+    # couple and pattern work on the same sweep: its inductances and its taps
+    assert study.couple.loop_inductance_h == pytest.approx(study.sweep.inductance_h, rel=1e-12, abs=0)
+    assert study.pattern.tap_turns in study.sweep.tap_turns
     assert re.fullmatch(r"[0-9a-f]{64}", study.spec_sha256)
 
 
@@ -151,8 +156,9 @@ def test_report_has_every_section_in_order(study):
     page = render_report(study)
     headings = re.findall(r"<h2>(.*?)</h2>", page)
     assert headings == [h for _, h, _ in SECTIONS]
-    assert headings.index("The loop as built") < headings.index("Band coverage and channel chart") \
-        < headings.index("Validation") < headings.index("Assumptions and limits") < headings.index("Safety")
+    order = ["The loop as built", "Band coverage and channel chart", "Boost at the radio", "Patterns and nulls",
+             "Validation", "Assumptions and limits", "Safety"]
+    assert [h for h in headings if h in order] == order  # the issue's order
     for caution in ("power lines", "lightning", "kilovolts", "local electrical codes"):
         assert caution in page
     assert "http://" not in page.replace("http://www.w3.org", "") and "https://" not in page
@@ -174,7 +180,8 @@ def test_a_registered_section_is_rendered_in_place(study):
 def test_figures_have_axes_with_units(study):
     """Every axis that shows numbers is labelled with a unit in brackets."""
     with report_style():
-        figs = [coverage_figure(study.tune), loop_drawing_figure(study.spec, study.sweep.geometry)]
+        figs = [coverage_figure(study.tune), loop_drawing_figure(study.spec, study.sweep.geometry),
+                boost_figure(study.couple, study.tune), placement_figure(study.couple)]
     for fig in figs:
         for ax in fig.axes:
             for label in (ax.get_xlabel(), ax.get_ylabel()):
@@ -202,8 +209,12 @@ def test_cli_study_json_and_files(tmp_path, capsys):
                  "--no-convergence"]) == 0
     d = json.loads(capsys.readouterr().out)
     assert d["name"] == "small-imperial" and d["verdict"]["status"] in ("ok", "caution", "unreliable")
-    for name in ("report.html", "sweep.json", "tuning.json", "validation.json", "study.json", "taps.s2p"):
+    for name in ("report.html", "sweep.json", "tuning.json", "validation.json", "study.json", "taps.s2p",
+                 "coupling.json", "loop-receiver.s2p", "boost.png", "placement.png", "pattern.json", "pattern.png"):
         assert (out / name).stat().st_size > 0
+    assert set(d["boost"]["best"]) >= {"boost_db", "position_m", "orientation_deg"}
+    assert d["boost"]["optimum_spacing"]["distance_m"] > 0
+    assert d["nulls"]["deepest"]["loop"]["depth_db"] < 0
     assert json.loads((out / "study.json").read_text())["spec_sha256"] == d["spec_sha256"]
 
 
@@ -241,3 +252,138 @@ def test_notes_must_be_text(tmp_path):
     with pytest.raises(SpecError) as err:
         load(write_spec(tmp_path, SMALL_IMPERIAL.replace('notes = "Bench', 'notes = 5\n# "Bench')))
     assert err.value.problems[0][0] == "notes"
+
+
+# --- couple and pattern in the study ------------------------------------------------------------
+
+
+def test_pattern_solve_is_made_once_and_handed_over(study):
+    """The pattern's factorisation is made once (ahead of the sweep) and the pattern stage gets
+    every piece of it from memory; no (mesh, environment, frequency) is solved in two stages."""
+    log = study.solve_log
+    f = study.pattern.frequency_hz
+    groups = {e.group for e in log if e.frequency_hz == f and e.stage in ("pattern-solve", "pattern")}
+    assert len(groups) == 1
+    assert {e.how for e in log if e.stage == "pattern"} == {"memory"}
+    assert study.factorisations()["per_stage"]["pattern-solve"] == 1
+    assert study.factorisations()["refactorised"] == []
+
+
+def test_the_refactorisation_check_can_fail(study):
+    """The check counts a group solved in a second stage (a frequency factorised twice)."""
+    first = next(e for e in study.solve_log if e.how == "solved" and e.stage == "sweep")
+    again = SolveLogEntry("validate", first.key + "-other-piece", "solved", first.group, first.frequency_hz)
+    twice = dataclasses.replace(study, solve_log=study.solve_log + (again,))
+    assert twice.factorisations()["refactorised"] == [first.group]
+
+
+def test_pattern_on_a_sweep_frequency_is_factorised_once(tmp_path):
+    """A [pattern] frequency that the sweep also solves (1115 kHz is the 4th of the 7 sweep points
+    520–1710 kHz, (1710 − 520)/6 × 3 + 520, computed by hand) is factorised once: the sweep finds
+    that port matrix in the store the pattern's solve filled."""
+    spec = load(write_spec(tmp_path, SMALL_IMPERIAL + '[pattern]\nfrequency = "1115 kHz"\n'))
+    result = run_study(spec, workers=1, cache=None, convergence=False)
+    at = [s for s in result.sweep.solves if abs(s.frequency_hz - 1115e3) < 1e-3]
+    assert at, "precondition: the sweep solves 1115 kHz directly"
+    assert all(s.cached for s in at)  # served from the pattern's factorisation
+    solved = {(e.stage, e.group) for e in result.solve_log if e.how == "solved" and abs(e.frequency_hz - 1115e3) < 1e-3}
+    assert {st for st, _ in solved} == {"pattern-solve"} and len(solved) == 1
+    assert result.factorisations()["refactorised"] == []
+
+
+def test_boost_and_pattern_sections_mark_what_is_untrusted(study):
+    """The small spec's tuner stops at 1000 pF (spec text) and its 4-turn tap needs more at the
+    pattern's 1 MHz, so the pattern's capacitance is shown untrusted; the coupling module finds
+    the optimum spacing at the closest allowed point, shown untrusted too."""
+    p, c = study.pattern, study.couple
+    assert p.capacitance_f > 1000e-12
+    page = render_report(study)
+    assert f'<span class="untrusted">{p.capacitance_f * 1e12:.1f} pF</span>' in page
+    assert "outside the tuner's range" in page
+    assert c.optimum_at_near_limit
+    row = re.search(r"optimum spacing along the loop axis</td><td class=\"([^\"]*)\"", page)
+    assert row and "untrusted" in row.group(1)
+
+
+def test_every_pattern_response_is_drawn_and_listed(study):
+    """A response the pattern gains later (the loop + radio "system") appears in the figure, the
+    report and the summary with no change here."""
+    from simloop.patterns import Null
+
+    p = study.pattern
+    system_db = p.response_db["loop"] - 3.0
+    null = Null(azimuth_deg=45.0, elevation_deg=float(p.elevation_deg[0]), depth_db=-25.0, of="system",
+                cause="beyond-dipole", detail={"e": 0.01, "without_rest_db": -60.0})
+    grown = dataclasses.replace(p, response_db={**p.response_db, "system": system_db},
+                                models={**p.models, "system": "circuit"}, nulls=p.nulls + (null,))
+    result = dataclasses.replace(study, results={**study.results, "pattern": grown})
+    with report_style():
+        fig = pattern_figure(grown)
+    labels = [line.get_label() for line in fig.axes[0].get_lines()]
+    assert "loop + radio" in labels
+    page = render_report(result)
+    assert "loop + radio" in page and '<td class="text">system</td>' in page
+    assert summary_dict(result)["nulls"]["deepest"]["system"]["depth_db"] == -25.0
+
+
+def test_a_failed_pattern_stage_leaves_the_rest(tmp_path, monkeypatch, capsys):
+    """A pattern whose solve fails is reported as not computed; every other output is written and
+    the exit status is 1 (0 with --keep-going)."""
+    import simloop.patterns
+    from simloop.errors import SolverError
+
+    def broken(*args, **kwargs):
+        raise SolverError("1 MHz: injected failure")
+
+    monkeypatch.setattr(simloop.patterns, "run_pattern", broken)
+    spec = write_spec(tmp_path, SMALL_IMPERIAL)
+    out = tmp_path / "out"
+    assert main(["study", str(spec), "--out", str(out), "--workers", "1", "--no-convergence", "--no-cache"]) == 1
+    assert "pattern stage failed" in capsys.readouterr().err
+    page = (out / "report.html").read_text()
+    assert "Not computed" in page and "injected failure" in page
+    assert (out / "coupling.json").exists() and not (out / "pattern.json").exists()
+    d = json.loads((out / "study.json").read_text())
+    assert d["nulls"] == {"failed": "1 MHz: injected failure"}
+    assert main(["study", str(spec), "--out", str(out), "--workers", "1", "--no-convergence", "--no-cache",
+                 "--keep-going"]) == 0
+
+
+def test_study_refuses_bad_receiver_placement_before_solving(tmp_path, capsys):
+    """A radio whose rod passes through the winding is a spec error before any solve."""
+    text = SMALL_IMPERIAL + """
+[receiver]
+rod_length = "100 mm"
+rod_diameter = "10 mm"
+permeability = 125
+coil_turns = 65
+coil_length = "20 mm"
+loaded_q = 60
+position = ["0 m", "0 m", "-8 in"]
+axis = [0, 1, 0]
+"""
+    out = tmp_path / "out"
+    assert main(["study", str(write_spec(tmp_path, text)), "--out", str(out), "--no-cache"]) == 2
+    assert "receiver" in capsys.readouterr().err
+    assert not out.exists()
+
+
+def test_notebook_study_takes_a_path(tmp_path):
+    """simloop.study is the notebook function (not shadowed by a submodule) and loads a path."""
+    import simloop
+    import simloop.studies  # noqa: F401 - importing the module must not replace the function
+    from simloop.errors import SpecError
+
+    assert callable(simloop.study)
+    with pytest.raises(SpecError) as err:
+        simloop.study(tmp_path / "missing.toml")
+    assert "missing.toml" in str(err.value)
+
+
+def test_text_summary_stays_short(study):
+    """The terminal summary: a line per tap plus gaps, boost, nulls and verdict, nothing more."""
+    text = format_summary(study)
+    lines = text.splitlines()
+    assert len(lines) <= len(study.sweep.tap_turns) + 5
+    assert any(line.startswith("  boost: best") for line in lines)
+    assert any(line.startswith("  deepest nulls at 1000 kHz: loop") for line in lines)
