@@ -306,8 +306,8 @@ def test_boost_and_pattern_sections_mark_what_is_untrusted(study):
 
 
 def test_every_pattern_response_is_drawn_and_listed(study):
-    """A response the pattern gains later (the loop + radio "system") appears in the figure, the
-    report and the summary with no change here."""
+    """Every response of the pattern (here a made-up "system" response replacing the real one)
+    appears in the figure, the report and the summary."""
     from simloop.patterns import Null
 
     p = study.pattern
@@ -315,7 +315,8 @@ def test_every_pattern_response_is_drawn_and_listed(study):
     null = Null(azimuth_deg=45.0, elevation_deg=float(p.elevation_deg[0]), depth_db=-25.0, of="system",
                 cause="beyond-dipole", detail={"e": 0.01, "without_rest_db": -60.0})
     grown = dataclasses.replace(p, response_db={**p.response_db, "system": system_db},
-                                models={**p.models, "system": "circuit"}, nulls=p.nulls + (null,))
+                                models={**p.models, "system": "circuit"},
+                                nulls=tuple(n for n in p.nulls if n.of != "system") + (null,))
     result = dataclasses.replace(study, results={**study.results, "pattern": grown})
     with report_style():
         fig = pattern_figure(grown)
