@@ -25,6 +25,30 @@ def _num(x):
     return x if math.isfinite(x) else None
 
 
+def trend_text(code: str, params: dict) -> str:
+    """The words for a Richardson outcome of the mesh convergence (codes of
+    :class:`simloop.reference.RichardsonResult`)."""
+    p = params
+    if code == "agree":
+        return f"the three meshes agree within {p['agree_within'] * 100:g} %"
+    if code == "not-monotone":
+        return (f"not monotone in segment length (coarse → sweep {p['coarse_step']:+.2%}, sweep → "
+                f"fine {p['fine_step']:+.2%}): no power-law trend to extrapolate")
+    if code == "faster-than-power-law":
+        return (f"converged between the finer two: coarse → sweep {p['coarse_step']:+.2%}, sweep → "
+                f"fine {p['fine_step']:+.2%}; the steps shrink faster than any power law")
+    if code == "no-shrink":
+        return (f"the steps do not shrink with the segment length (coarse → sweep "
+                f"{p['coarse_step']:+.2%}, sweep → fine {p['fine_step']:+.2%}): no power-law trend")
+    if code == "order-outside":
+        lo, hi = p["order_range"]
+        return (f"observed order {p['observed_order']:.2f} lies outside {lo}–{hi}: the meshes are not in "
+                f"the asymptotic range")
+    if code == "extrapolated":
+        return f"Richardson, p = {p['order']} (observed {p['observed_order']:.2f})"
+    raise ValueError(f"unknown convergence trend code {code!r}")
+
+
 def validation_dict(result: ValidationResult) -> dict:
     """Everything ``simloop validate`` reports, as JSON-ready data."""
     checks = []
@@ -62,7 +86,8 @@ def validation_dict(result: ValidationResult) -> dict:
             "extrapolated_inductance_h": _num(c.extrapolated_inductance_h),
             "observed_order": _num(c.observed_order),
             "richardson_order": RICHARDSON_ORDER,
-            "note": c.note,
+            "note": trend_text(c.trend_code, c.trend_params),
+            "trend": {"code": c.trend_code, "params": c.trend_params},
         })
 
     def mesh_entry(m):
@@ -228,7 +253,7 @@ def format_validate_table(result: ValidationResult) -> str:
         for c in result.convergence:
             est = "-" if c.extrapolated_inductance_h is None else _si(c.extrapolated_inductance_h, "H")
             lines.append(f"  {c.tap:<4} " + " ".join(f"{_si(v, 'H'):>12}" for v in c.inductance_h)
-                         + f" {c.inductance_spread:>9.2%} {c.resistance_spread:>9.2%} {est:>12}  {c.note}")
+                         + f" {c.inductance_spread:>9.2%} {c.resistance_spread:>9.2%} {est:>12}  {trend_text(c.trend_code, c.trend_params)}")
     else:
         lines.append("mesh convergence: not assessed")
 

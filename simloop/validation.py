@@ -47,9 +47,17 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
 
 from simloop import reference
+from simloop.reference import (  # noqa: F401  (sphere_weights: simloop.patterns imports it from here)
+    average_gain,
+    inductance_square_spiral_current_sheet,
+    magnetic_moment_area_m2,
+    radiation_resistance_moment,
+    richardson_extrapolation,
+    rosa_round_wire_correction,
+    sphere_weights,
+)
 from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
 from simloop.geometry import LoopGeometry
@@ -102,187 +110,6 @@ _MESH_RULES_CAUTION = {
     "thin-wire kernel: segment/radius >= 8": "thin-wire kernel",
     "segment <= 0.05 wavelength at the top frequency": "segment/wavelength",
 }
-
-
-# ------------------------------------------------------------------------------------------------
-# Formulas not (yet) in simloop.reference
-# ------------------------------------------------------------------------------------------------
-
-
-def magnetic_moment_area_m2(starts, ends) -> np.ndarray:
-    r"""Vector area of a closed circuit of straight pieces, m/I = ½ ∮ r × dl. [m²]
-
-    For a straight piece from p to q, ∫ r × dr = p × q, so the vector area is ½ Σ p_k × q_k,
-    independent of the origin when the circuit is closed.
-    """
-    p = np.asarray(starts, dtype=float).reshape(-1, 3)
-    q = np.asarray(ends, dtype=float).reshape(-1, 3)
-    return 0.5 * np.cross(p, q).sum(axis=0)
-
-
-def radiation_resistance_moment(area_vector_m2, frequency_hz) -> float:
-    r"""Radiation resistance of an electrically small closed circuit from its vector area. [Ω]
-
-    .. math:: R_r = \frac{\eta_0 k^4}{6\pi}\,|\mathbf{A}|^2 \approx 320\pi^4\frac{|\mathbf{A}|^2}{\lambda^4}
-
-    The magnetic-dipole term of any small current loop; for N equal plane turns |A| = N·A and it
-    is Balanis' small-loop formula (C. A. Balanis, *Antenna Theory*, 4th ed., 2016, ch. 5), whose
-    constant 320π⁴ takes η0 = 120π; with η0 = μ0·c, as here and in NEC, it is 0.07 % lower.
-    Using the vector area of the actual winding path takes in the unequal turns of a spiral and
-    the lead loop.
-    """
-    k = 2 * np.pi * float(frequency_hz) / C0
-    a2 = float(np.dot(area_vector_m2, area_vector_m2))
-    return ETA0 * k**4 * a2 / (6 * np.pi)
-
-
-def inductance_square_spiral_current_sheet(d_out_m, d_in_m, turns) -> float:
-    r"""Current-sheet inductance of a flat square spiral (Mohan et al. 1999). [H]
-
-    .. math:: L = \frac{\mu_0 n^2 d_{avg} c_1}{2}\left[\ln\frac{c_2}{\rho} + c_3\rho
-              + c_4\rho^2\right],\quad d_{avg} = \frac{d_{out} + d_{in}}{2},\quad
-              \rho = \frac{d_{out} - d_{in}}{d_{out} + d_{in}}
-
-    with c1 = 1.27, c2 = 2.07, c3 = 0.18, c4 = 0.13 for a square spiral; d_out and d_in are the
-    outer and inner side lengths of the winding (conductor edges).
-
-    References
-    ----------
-    .. [1] S. S. Mohan, M. del Mar Hershenson, S. P. Boyd, T. H. Lee, "Simple accurate
-       expressions for planar spiral inductances", IEEE J. Solid-State Circuits 34(10), 1999,
-       pp. 1419–1424 (current-sheet expression, table of c1–c4). Coefficients from memory
-       [mem]: confirm against the paper before relying on them.
-    """
-    d_out, d_in, n = float(d_out_m), float(d_in_m), float(turns)
-    d_avg = 0.5 * (d_out + d_in)
-    rho = (d_out - d_in) / (d_out + d_in)
-    c1, c2, c3, c4 = 1.27, 2.07, 0.18, 0.13
-    return reference.MU0 * n**2 * d_avg * c1 / 2 * (np.log(c2 / rho) + c3 * rho + c4 * rho**2)
-
-
-def rosa_b(turns: int) -> float:
-    r"""Rosa's correction B for the mutual inductances of N round-wire turns against a sheet. [-]
-
-    .. math:: B = -\frac{2}{N}\sum_{k=1}^{N-1}(N-k)\left[F(k) - \ln k\right],\quad
-              F(k) = \tfrac12\left[(k+1)^2\ln(k+1) + (k-1)^2\ln|k-1| - 2k^2\ln k\right]
-              - \tfrac32
-
-    F(k) is the mean of ln(distance) between two strips of unit width whose centres are k apart;
-    B is its difference from the filaments' ln k, summed over the pairs of turns. The sum
-    reproduces Rosa's table (B = 0.1137, 0.1663, 0.1973 for N = 2, 3, 4; 0.2664 for N = 10;
-    0.3365 as N → ∞) [mem for the table; the sum is derived here].
-    """
-    n = int(turns)
-
-    def f(k):
-        km1 = (k - 1) ** 2 * np.log(abs(k - 1)) if k != 1 else 0.0
-        return 0.5 * ((k + 1) ** 2 * np.log(k + 1) + km1 - 2 * k**2 * np.log(k)) - 1.5
-
-    return float(-(2.0 / n) * sum((n - k) * (f(k) - np.log(k)) for k in range(1, n)))
-
-
-def rosa_round_wire_correction(turn_length_m, turns, pitch_m, wire_diameter_m) -> float:
-    r"""Round-wire correction of a current-sheet inductance (Rosa 1908; Grover 1946). [H]
-
-    .. math:: L = L_{sheet} - \frac{\mu_0}{2\pi}\,\ell N (A + B),\qquad
-              A = \tfrac54 - \ln\frac{2p}{d}
-
-    ℓ is the length of one turn, p the pitch, d the wire diameter, B from :func:`rosa_b`. A is
-    Rosa's value for a uniform (DC) current; with the current on the surface it is 0.25 larger.
-    For spaced windings (p ≫ d) A is negative and the correction adds inductance: a current sheet
-    underestimates thin wires.
-
-    References
-    ----------
-    .. [1] E. B. Rosa, "The self and mutual inductances of linear conductors", Bull. Bureau of
-       Standards 4(2), 1908 (corrections A and B).
-    .. [2] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946.
-    """
-    a = 1.25 - np.log(2 * float(pitch_m) / float(wire_diameter_m))
-    return float(-reference.MU0 / (2 * np.pi) * float(turn_length_m) * int(turns) * (a + rosa_b(turns)))
-
-
-def sphere_weights(theta_deg, phi_deg) -> np.ndarray:
-    r"""Quadrature weights on a θ–φ grid for ∮ F dΩ = Σ w F, shape (nφ, nθ). [sr]
-
-    Composite Simpson in θ over [0°, 180°] (an even number of intervals) with the sin θ factor of
-    the solid angle, uniform (periodic) weights in φ over [0°, 360°).
-    """
-    th = np.radians(np.asarray(theta_deg, dtype=float))
-    ph = np.asarray(phi_deg, dtype=float)
-    n = th.size - 1
-    if n < 2 or n % 2:
-        raise ValueError(f"θ needs an even number of intervals for Simpson's rule, got {n}")
-    h = th[1] - th[0]
-    if not np.allclose(np.diff(th), h) or abs(th[0]) > 1e-9 or abs(th[-1] - np.pi) > 1e-9:
-        raise ValueError("θ must run uniformly from 0° to 180°")
-    dph = 360.0 / ph.size
-    if not np.allclose(ph, ph[0] + dph * np.arange(ph.size)):
-        raise ValueError("φ must be uniform over [0°, 360°)")
-    simpson = np.ones(th.size)
-    simpson[1:-1:2], simpson[2:-1:2] = 4.0, 2.0
-    w_theta = simpson * h / 3 * np.sin(th)
-    return np.radians(dph) * np.broadcast_to(w_theta, (ph.size, th.size))
-
-
-def average_gain(e_theta_v, e_phi_v, theta_deg, phi_deg, input_power_w) -> tuple[float, float]:
-    r"""Average gain of a pattern: radiated power over the sphere / input power. [-]
-
-    .. math:: P_{rad} = \oint \frac{|rE_\theta|^2 + |rE_\phi|^2}{2\eta_0}\,d\Omega,\qquad
-              \mathrm{AGT} = P_{rad}/P_{in}
-
-    Returns (AGT, P_rad [W]). ``e_theta_v``, ``e_phi_v``: r·E, shape (nφ, nθ), peak values. [V]
-    """
-    w = sphere_weights(theta_deg, phi_deg)
-    density = (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2) / (2 * ETA0)
-    p_rad = float(np.sum(w * density))
-    return p_rad / float(input_power_w), p_rad
-
-
-def richardson(segment_m, values, order: float = RICHARDSON_ORDER):
-    r"""Extrapolate values(Δ) = v* + cΔ^p to Δ → 0 from the two finest meshes.
-
-    Parameters
-    ----------
-    segment_m : array_like, shape (3,)
-        Segment lengths, coarse to fine. [m]
-    values : array_like, shape (3,)
-    order : float
-        p used for the extrapolation.
-
-    Returns
-    -------
-    (estimate or None, observed order or None, reason)
-        The estimate only when the three values are monotone in Δ and the order they imply lies in
-        :data:`ORDER_RANGE`; the reason says in words why not otherwise.
-    """
-    d = np.asarray(segment_m, dtype=float)
-    v = np.asarray(values, dtype=float)
-    d1, d2 = v[0] - v[1], v[1] - v[2]
-    scale = abs(v[2])
-    if abs(d1) < 1e-4 * scale and abs(d2) < 1e-4 * scale:
-        return float(v[2]), None, "the three meshes agree within 0.01 %"
-    if d1 * d2 <= 0:
-        return None, None, (f"not monotone in segment length (coarse → sweep {-d1 / scale:+.2%}, sweep → "
-                            f"fine {-d2 / scale:+.2%}): no power-law trend to extrapolate")
-    ratio = d1 / d2
-
-    def mismatch(p):
-        return (d[0] ** p - d[1] ** p) / (d[1] ** p - d[2] ** p) - ratio
-
-    lo, hi = 0.05, 8.0
-    if mismatch(hi) < 0:
-        return None, None, (f"converged between the finer two: coarse → sweep {-d1 / scale:+.2%}, sweep → "
-                            f"fine {-d2 / scale:+.2%}; the steps shrink faster than any power law")
-    if mismatch(lo) > 0:
-        return None, None, (f"the steps do not shrink with the segment length (coarse → sweep "
-                            f"{-d1 / scale:+.2%}, sweep → fine {-d2 / scale:+.2%}): no power-law trend")
-    p_obs = float(brentq(mismatch, lo, hi))
-    if not ORDER_RANGE[0] <= p_obs <= ORDER_RANGE[1]:
-        return None, p_obs, (f"observed order {p_obs:.2f} lies outside {ORDER_RANGE[0]}–"
-                             f"{ORDER_RANGE[1]}: the meshes are not in the asymptotic range")
-    c = (v[1] - v[2]) / (d[1] ** order - d[2] ** order)
-    return float(v[2] - c * d[2] ** order), p_obs, f"Richardson, p = {order} (observed {p_obs:.2f})"
 
 
 # ------------------------------------------------------------------------------------------------
@@ -360,7 +187,10 @@ class Convergence:
     resistance_spread: float
     extrapolated_inductance_h: float | None
     observed_order: float | None
-    note: str
+    #: Richardson outcome: code and parameters (see :class:`simloop.reference.RichardsonResult`),
+    #: worded by :func:`simloop.report_validate.trend_text`.
+    trend_code: str
+    trend_params: dict
 
 
 @dataclass(frozen=True)
@@ -975,10 +805,11 @@ def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
         l_app = np.array([s.z[i, i].imag / w for s in results])
         spread_l = float((l_s.max() - l_s.min()) / l_s[1])
         spread_r = float((r_s.max() - r_s.min()) / abs(r_s[1]))
-        est, order, reason = richardson(segs, l_s)
+        trend = richardson_extrapolation(segs, l_s, RICHARDSON_ORDER, ORDER_RANGE)
         conv.append(Convergence(tap=n, frequency_hz=f_c, inductance_h=l_s, apparent_inductance_h=l_app,
                                 resistance_ohm=r_s, inductance_spread=spread_l, resistance_spread=spread_r,
-                                extrapolated_inductance_h=est, observed_order=order, note=reason))
+                                extrapolated_inductance_h=trend.estimate, observed_order=trend.observed_order,
+                                trend_code=trend.code, trend_params=trend.params))
     return runs, conv, []
 
 
