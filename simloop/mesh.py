@@ -35,6 +35,22 @@ QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
 FLOOR_TRUSTED = 7e-5
 FLOOR_ABSOLUTE = 5e-5
 
+#: Longest segment at the top frequency, in wavelengths: 0.05 λ in critical regions passes, up to
+#: 0.1 λ (the guide's limit elsewhere) warns (NEC-2 User's Guide, Burke & Poggio 1981, sec. II). [-]
+WAVELENGTH_PASS, WAVELENGTH_WARN = 0.05, 0.1
+#: Shortest segment over wire radius: ≥ 8 keeps the thin-wire kernel within 1 %, below 2 it is
+#: invalid (Burke & Poggio 1981, sec. II). [-]
+KERNEL_PASS, KERNEL_WARN = 8.0, 2.0
+#: Winding segment over pitch: ≤ 2 passes, ≤ 3.4 warns (measured with PyNEC 2.3.4 on 10-turn MW
+#: coils, L bias about −2 % at 2.5 and −4 % at 3.3; docs/notes/pynec.md). [-]
+PITCH_PASS, PITCH_WARN = 2.0, 3.4
+#: Longest over shortest segment above which the mesh is not uniform (a single coarse lead segment
+#: cost 5 % of L in our PyNEC measurements; docs/notes/pynec.md). [-]
+UNIFORM_LIMIT = 2.0
+#: Segments above which a solve warns for its time and memory (:func:`solve_cost`: about 70 s and
+#: 1.2 GB per frequency on one core, measured for this project). [-]
+SIZE_WARN = 6000
+
 
 
 def solve_cost(n_segments: float) -> tuple[float, float]:
@@ -258,6 +274,9 @@ class Rule:
     name: str
     status: str
     detail: str
+    #: The rule's identity: ``"wavelength"``, ``"kernel"``, ``"pitch"``, ``"uniform"``,
+    #: ``"floor"`` or ``"size"`` (``name`` is its sentence, for people).
+    key: str = ""
 
 
 def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, turns: int) -> list[Rule]:
@@ -266,22 +285,23 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
     lam_top = C0 / stop_hz
     ratio = mesh.longest_m / lam_top
     rules.append(Rule("segment <= 0.05 wavelength at the top frequency",
-                      "pass" if ratio <= 0.05 else ("warn" if ratio <= 0.1 else "fail"),
-                      f"longest segment {mesh.longest_m * 1e3:.2f} mm = {ratio:.2e} λ at {stop_hz / 1e6:.3f} MHz"))
+                      "pass" if ratio <= WAVELENGTH_PASS else ("warn" if ratio <= WAVELENGTH_WARN else "fail"),
+                      f"longest segment {mesh.longest_m * 1e3:.2f} mm = {ratio:.2e} λ at {stop_hz / 1e6:.3f} MHz",
+                      "wavelength"))
     da = mesh.shortest_m / mesh.radius_m
     rules.append(Rule("thin-wire kernel: segment/radius >= 8",
-                      "pass" if da >= 8 else ("warn" if da >= 2 else "fail"),
-                      f"shortest segment / radius = {da:.1f} (< 2 invalid, 2–8 over 1 % error)"))
+                      "pass" if da >= KERNEL_PASS else ("warn" if da >= KERNEL_WARN else "fail"),
+                      f"shortest segment / radius = {da:.1f} (< 2 invalid, 2–8 over 1 % error)", "kernel"))
     if turns > 1:
         rp = mesh.winding_segment_m / geom.pitch_m
         rules.append(Rule("segment <= 2 x pitch on the winding",
-                          "pass" if rp <= 2.0 else ("warn" if rp <= 3.4 else "fail"),
+                          "pass" if rp <= PITCH_PASS else ("warn" if rp <= PITCH_WARN else "fail"),
                           f"winding segment / pitch = {rp:.2f} (measured L bias: 2.5 → about -2 %, "
-                          f"3.3 → -4 %, 5 → -9 %)"))
+                          f"3.3 → -4 %, 5 → -9 %)", "pitch"))
     spread = mesh.longest_m / mesh.shortest_m
     rules.append(Rule("uniform segment length (leads included)",
-                      "pass" if spread <= 2.0 else "warn",
-                      f"longest / shortest segment = {spread:.2f}"))
+                      "pass" if spread <= UNIFORM_LIMIT else "warn",
+                      f"longest / shortest segment = {spread:.2f}", "uniform"))
     f_floor = mesh.floor_frequency_hz(FLOOR_TRUSTED)
     if f_floor <= start_hz:
         status, detail = "pass", f"every sweep point is above {f_floor / 1e6:.3f} MHz (Δ ≥ 7e-5 λ)"
@@ -289,12 +309,12 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
         status = "warn"
         detail = (f"direct MoM reactance is trusted only above {f_floor / 1e6:.3f} MHz (Δ ≥ 7e-5 λ); "
                   f"sweep points below it come from the circuit solver")
-    rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail))
+    rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail, "floor"))
     n = mesh.n_segments
     seconds, memory_b = solve_cost(n)
-    rules.append(Rule("size", "pass" if n <= 6000 else ("warn" if n <= MAX_SEGMENTS else "fail"),
+    rules.append(Rule("size", "pass" if n <= SIZE_WARN else ("warn" if n <= MAX_SEGMENTS else "fail"),
                       f"{n} segments: about {seconds:.1f} s and {memory_b / 1e6:.0f} MB per frequency "
-                      f"(PyNEC 2.3.4, one core); at most {MAX_SEGMENTS} are solved"))
+                      f"(PyNEC 2.3.4, one core); at most {MAX_SEGMENTS} are solved", "size"))
     return rules
 
 

@@ -221,7 +221,7 @@ def mesh_summary(result: SweepResult) -> dict:
         "winding_segment_m": mesh.winding_segment_m,
         "floor_trusted_hz": mesh.floor_frequency_hz(),
         "floor_absolute_hz": mesh.floor_frequency_hz(5e-5),
-        "rules": [{"rule": r.name, "status": r.status, "detail": r.detail} for r in result.rules],
+        "rules": [{"rule": r.name, "key": r.key, "status": r.status, "detail": r.detail} for r in result.rules],
     }
 
 

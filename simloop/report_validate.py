@@ -14,7 +14,9 @@ from simloop.validation import (
     AGT_STEP_DEG,
     BELOW_RESOLUTION,
     RICHARDSON_ORDER,
+    Reason,
     ValidationResult,
+    Verdict,
 )
 
 
@@ -23,6 +25,76 @@ def _num(x):
         return None
     x = float(x)
     return x if math.isfinite(x) else None
+
+
+def _where(f) -> str:
+    return "L0" if f is None else f"L at {f / 1e6:.3f} MHz"
+
+
+#: Verdict reason code → its wording from the parameters (:class:`simloop.validation.Reason`).
+_REASONS = {
+    "mesh-rule-fails": lambda p: f"mesh rule '{p['name']}' fails: {p['detail']}",
+    "mesh-rule-warns": lambda p: f"mesh rule '{p['name']}' warns: {p['detail']}",
+    "reciprocity": lambda p: (f"port-matrix reciprocity defect {p['defect']:.1%} exceeds {p['limit']:.0%}"
+                              if p["status"] == "unreliable" else
+                              f"port-matrix reciprocity defect {p['defect']:.1%} (above {p['limit']:.0%})"),
+    "fit-above-window": lambda p: (f"the sweep fitted its model up to {p['ratio']:.2f} × self-resonance "
+                                   f"(above {p['window_top']}), so its model points are less certain"),
+    "circuit-inductance": lambda p: (f"tap {p['tap']}: circuit-solver {_where(p['frequency_hz'])} is "
+                                     f"{p['deviation']:+.1%} from the quasi-static sum (beyond {p['limit']:.0%})"),
+    "mom-inductance-vs-circuit": lambda p: (f"tap {p['tap']}: MoM L at {p['frequency_hz'] / 1e6:.3f} MHz is "
+                                            f"{p['deviation']:+.1%} from the circuit solver's (beyond "
+                                            f"{p['limit']:.0%})"),
+    "mom-inductance": lambda p: f"tap {p['tap']}: MoM L is {p['deviation']:+.1%} from the quasi-static sum",
+    "wire-loss": lambda p: (f"tap {p['tap']}: MoM wire loss is {p['deviation']:+.1%} from the exact "
+                            f"skin-effect loss of its path at {p['frequency_hz'] / 1e6:.3f} MHz"),
+    "srf-not-found": lambda p: f"tap {p['tap']}: {p['detail']}",
+    "srf-off": lambda p: (f"tap {p['tap']}: direct MoM self-resonance {p['srf_hz'] / 1e6:.3f} MHz is "
+                          f"{p['deviation']:+.1%} from the circuit solver's, which moves the sweep's "
+                          f"impedance at the top of the band by about {p['in_band']:.1%}"),
+    "power-balance-broken": lambda p: (f"tap {p['tap']}: power balance {p['deviation']:+.1%} (radiated "
+                                       f"against accepted power): the MoM input resistance disagrees with "
+                                       f"its own far field"),
+    "power-balance": lambda p: (f"tap {p['tap']}: power balance {p['deviation']:+.1%} (radiated against "
+                                f"accepted power), beyond ±{p['accept']:.0%}: its input resistance is "
+                                f"inconsistent with its far field by {p['deviation']:+.1%} (radiation "
+                                f"resistance uncertain by that much)"),
+    "convergence-near-srf": lambda p: (f"mesh convergence could only be compared at {p['srf_ratio']:.2f} × "
+                                       f"self-resonance, where the spreads are less certain"),
+    "inductance-spread": lambda p: (f"tap {p['tap']}: inductance spread {p['spread']:.1%} over the coarse, "
+                                    f"sweep and fine meshes (beyond {p['limit']:.0%})"),
+    "resistance-spread": lambda p: (f"tap {p['tap']}: resistance spread {p['spread']:.1%} over the meshes "
+                                    f"(Q less certain)"),
+    "extrapolation": lambda p: (f"tap {p['tap']}: the sweep mesh's L is {p['deviation']:+.1%} from the "
+                                f"extrapolated zero-segment value"),
+    "convergence-not-assessed": lambda p: "mesh convergence could not be assessed",
+    "convergence-not-checked": lambda p: "mesh convergence not checked (--no-convergence)",
+    "all-within": lambda p: (f"every tap's inductance (circuit solver, and MoM where it runs) is within "
+                             f"{p['inductance'] * 100:g} % of the quasi-static sum, the mesh-convergence "
+                             f"spread is below {p['spread'] * 100:g} %, the power balance (radiated over "
+                             f"accepted power) is within ±{p['power_balance'] * 100:.0f} % and no mesh rule "
+                             f"warns"),
+}
+
+
+def reason_text(reason: Reason) -> str:
+    """The words for one verdict reason (its code and parameters)."""
+    try:
+        word = _REASONS[reason.code]
+    except KeyError:
+        raise ValueError(f"unknown verdict reason code {reason.code!r}") from None
+    return word({**reason.params, "status": reason.status})
+
+
+def verdict_texts(verdict: Verdict) -> list[str]:
+    """A verdict's reasons in words, most serious first."""
+    return [reason_text(r) for r in verdict.reasons]
+
+
+def verdict_dict(verdict: Verdict) -> dict:
+    """A verdict as JSON: status, the reasons in words, and the same reasons as codes."""
+    return {"status": verdict.status, "reasons": verdict_texts(verdict),
+            "codes": [{"status": r.status, "code": r.code, "params": r.params} for r in verdict.reasons]}
 
 
 def trend_text(code: str, params: dict) -> str:
@@ -94,7 +166,7 @@ def validation_dict(result: ValidationResult) -> dict:
         return {"label": m.label, "segments": m.segments, "target_m": m.target_m,
                 "winding_segment_m": m.winding_segment_m, "segment_over_pitch": m.segment_over_pitch,
                 "floor_hz": m.floor_hz,
-                "rules": [{"rule": r.name, "status": r.status, "detail": r.detail} for r in m.rules]}
+                "rules": [{"rule": r.name, "key": r.key, "status": r.status, "detail": r.detail} for r in m.rules]}
 
     taps = {}
     for i, n in enumerate(result.tap_turns):
@@ -105,14 +177,14 @@ def validation_dict(result: ValidationResult) -> dict:
             "inductance_error": float(result.inductance_error[i]),
             "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
             "self_resonance_hz": _num(result.self_resonance_hz[i]),
-            "verdict": {"status": v.status, "reasons": list(v.reasons)},
+            "verdict": verdict_dict(v),
         }
     return {
         "simloop_version": __version__,
         "command": "validate",
         "name": result.name,
         "ground": result.ground,
-        "verdict": {"status": result.verdict.status, "reasons": list(result.verdict.reasons)},
+        "verdict": verdict_dict(result.verdict),
         "q_used_by_tune": result.q_used_by_tune,
         "check_frequencies_hz": [float(f) for f in result.check_frequencies_hz],
         "taps": taps,
@@ -244,7 +316,7 @@ def format_validate_table(result: ValidationResult) -> str:
         lines.append(f"  {'mesh':<7} {'segments':>8} {'Δ [mm]':>7} {'Δ/pitch':>7}  rules that warn or fail")
         for mr in result.meshes:
             bad = [f"{r.name} ({r.status})" for r in mr.rules
-                   if r.status != "pass" and not r.name.startswith("low-frequency") and r.name != "size"]
+                   if r.status != "pass" and r.key not in ("floor", "size")]
             lines.append(f"  {mr.label:<7} {mr.segments:>8} {mr.winding_segment_m * 1e3:>7.2f} "
                          f"{mr.segment_over_pitch:>7.2f}  {'; '.join(bad) or '-'}")
         labels = [mr.label for mr in result.meshes]
@@ -275,7 +347,7 @@ def format_validate_table(result: ValidationResult) -> str:
     lines.append(f"Q used by tune: {result.q_used_by_tune} (rows 'Q skin+prox' and 'Q tune'); "
                  f"NEC's wire loss models the skin effect only")
     lines.append(f"VERDICT: {result.verdict.status.upper()}")
-    for r in result.verdict.reasons:
+    for r in verdict_texts(result.verdict):
         lines.append(f"  - {r}")
     if result.notes:
         lines.append("notes:")

@@ -104,12 +104,15 @@ Q_USED_BY_TUNE = "proximity-corrected"
 AGT_STEP_DEG = 5.0
 
 
-_MESH_RULES_CAUTION = {
-    "segment <= 2 x pitch on the winding": "pitch rule",
-    "uniform segment length (leads included)": "uniform segments",
-    "thin-wire kernel: segment/radius >= 8": "thin-wire kernel",
-    "segment <= 0.05 wavelength at the top frequency": "segment/wavelength",
-}
+#: Mesh rules (:attr:`simloop.mesh.Rule.key`) whose warning makes the verdict a caution: those that
+#: bias the MoM's L or R (the floor and size warnings only move points to the circuit solver).
+MESH_RULES_CAUTION = ("pitch", "uniform", "kernel", "wavelength")
+#: The fit window may reach this factor beyond WINDOW_TOP × self-resonance before it earns a
+#: caution: 5 %, our allowance for the grid step of the fit frequencies (not a published value).
+WINDOW_SLACK = 1.05
+#: Ceiling of x = (f_stop / f_srf)² in the SRF-misfit estimate 2δx/(1 − x), which diverges at
+#: x = 1 (a band reaching the resonance is judged as if it ended 0.5 % below it). [-]
+SRF_X_CEILING = 0.99
 
 
 # ------------------------------------------------------------------------------------------------
@@ -207,9 +210,22 @@ class AverageGain:
 
 
 @dataclass(frozen=True)
+class Reason:
+    """One reason of a verdict: its status, a code and the numbers behind it.
+
+    Worded by :func:`simloop.report_validate.reason_text`; the codes and their parameters are
+    listed there.
+    """
+
+    status: str  # "ok" | "caution" | "unreliable"
+    code: str
+    params: dict
+
+
+@dataclass(frozen=True)
 class Verdict:
     status: str  # "ok" | "caution" | "unreliable"
-    reasons: tuple[str, ...]
+    reasons: tuple[Reason, ...]
 
 
 @dataclass(frozen=True)
@@ -813,7 +829,11 @@ def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
     return runs, conv, []
 
 
-def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str]]:
+def _reason(status: str, code: str, **params) -> Reason:
+    return Reason(status, code, params)
+
+
+def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[Reason]:
     """Judge a tap's inductance: the circuit column (what the sweep reports) against the
     quasi-static sum, and the MoM of the end tap against the circuit. A mid tap's MoM reads high
     by NEC's junction bias (open wire continuing its path), shown in the table, not judged."""
@@ -822,131 +842,152 @@ def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str
     if c_rows:
         worst = max(c_rows, key=lambda c: abs(c.rel_diff_circuit))
         d = worst.rel_diff_circuit
-        where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
-        text = f"tap {n}: circuit-solver {where} is {d:+.1%} from the quasi-static sum"
-        if abs(d) > L_CAUTION:
-            out.append(("unreliable", text + f" (beyond {L_CAUTION:.0%})"))
-        elif abs(d) > L_OK:
-            out.append(("caution", text + f" (beyond {L_OK:.0%})"))
+        for status, limit in (("unreliable", L_CAUTION), ("caution", L_OK)):
+            if abs(d) > limit:
+                out.append(_reason(status, "circuit-inductance", tap=n, frequency_hz=worst.frequency_hz,
+                                   deviation=d, limit=limit))
+                break
     m_rows = [c for c in rows if c.quantity == "L" and c.mom is not None and c.circuit is not None]
     if m_rows and n == sweep.tap_turns[-1]:
         worst = max(m_rows, key=lambda c: abs(c.mom / c.circuit - 1))
         d = worst.mom / worst.circuit - 1
         if abs(d) > L_CAUTION:
-            out.append(("caution", f"tap {n}: MoM L at {worst.frequency_hz / 1e6:.3f} MHz is {d:+.1%} from the "
-                                   f"circuit solver's (beyond {L_CAUTION:.0%})"))
+            out.append(_reason("caution", "mom-inductance-vs-circuit", tap=n, frequency_hz=worst.frequency_hz,
+                               deviation=d, limit=L_CAUTION))
     if not c_rows:  # no circuit: the MoM against the quasi-static sum, as before
         l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
         if l_rows:
-            worst = max(l_rows, key=lambda c: abs(c.rel_diff_mom))
-            if abs(worst.rel_diff_mom) > L_CAUTION:
-                out.append(("unreliable", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
-            elif abs(worst.rel_diff_mom) > L_OK:
-                out.append(("caution", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
+            d = max(l_rows, key=lambda c: abs(c.rel_diff_mom)).rel_diff_mom
+            for status, limit in (("unreliable", L_CAUTION), ("caution", L_OK)):
+                if abs(d) > limit:
+                    out.append(_reason(status, "mom-inductance", tap=n, deviation=d, limit=limit))
+                    break
     return out
+
+
+def _mesh_reasons(sweep: SweepResult) -> list[Reason]:
+    """The MoM mesh's rules that fail (unreliable) or warn (caution, for the rules that bias L)."""
+    out = []
+    for r in sweep.rules:
+        if r.status == "fail":
+            out.append(_reason("unreliable", "mesh-rule-fails", rule=r.key, name=r.name, detail=r.detail))
+        elif r.status == "warn" and r.key in MESH_RULES_CAUTION:
+            out.append(_reason("caution", "mesh-rule-warns", rule=r.key, name=r.name, detail=r.detail))
+    return out
+
+
+def _sweep_reasons(sweep: SweepResult) -> list[Reason]:
+    """Reciprocity of the port matrices and the top of the sweep's fit window."""
+    out = []
+    worst_asym = max((s.asymmetry for s in sweep.solves), default=0.0)
+    if worst_asym > ASYMMETRY_LIMIT:
+        out.append(_reason("unreliable", "reciprocity", defect=worst_asym, limit=ASYMMETRY_LIMIT))
+    elif worst_asym > ASYMMETRY_CAUTION:
+        out.append(_reason("caution", "reciprocity", defect=worst_asym, limit=ASYMMETRY_CAUTION))
+    srf_low = np.nanmin(sweep.self_resonance_hz) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
+    top = float(np.max(sweep.model.fit_hz))
+    if srf_low is not None and top > WINDOW_SLACK * WINDOW_TOP * srf_low:
+        out.append(_reason("caution", "fit-above-window", ratio=top / srf_low, window_top=WINDOW_TOP))
+    return out
+
+
+def _loss_reasons(n: int, rows) -> list[Reason]:
+    """MoM wire loss against the exact skin-effect loss of the tap's path."""
+    loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
+    if not loss:
+        return []
+    worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
+    if abs(worst.rel_diff_mom) <= R_LOSS_CAUTION:
+        return []
+    return [_reason("caution", "wire-loss", tap=n, deviation=worst.rel_diff_mom, frequency_hz=worst.frequency_hz)]
+
+
+def _srf_reasons(sweep: SweepResult, n: int, rows, mom_ok: bool) -> list[Reason]:
+    """Direct-MoM self-resonance against the circuit's, judged by its effect at the top of the band."""
+    srf = next((c for c in rows if c.quantity == "SRF"), None)
+    f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
+    if srf is None or not np.isfinite(f_model):
+        return []
+    if srf.mom is None:
+        return [_reason("caution", "srf-not-found", tap=n, detail=srf.note.split(";")[0])] if mom_ok else []
+    # An SRF misfit δ moves the model's |Z| at the top of the band by about
+    # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
+    delta = srf.mom / f_model - 1
+    x = min((sweep.frequencies_hz.max() / f_model) ** 2, SRF_X_CEILING)
+    in_band = 2 * abs(delta) * x / (1 - x)
+    if in_band <= SRF_CAUTION:
+        return []
+    return [_reason("caution", "srf-off", tap=n, srf_hz=srf.mom, deviation=delta, in_band=in_band)]
+
+
+def _power_balance_reasons(agt_rows) -> list[Reason]:
+    out = []
+    for a in agt_rows:
+        if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
+            out.append(_reason("unreliable", "power-balance-broken", tap=a.tap, deviation=a.agt - 1))
+        elif not a.accepted:
+            out.append(_reason("caution", "power-balance", tap=a.tap, deviation=a.agt - 1,
+                               accept=AGT_ACCEPT[1] - 1))
+    return out
+
+
+def _convergence_reasons(conv, plan: dict | None) -> tuple[list[Reason], list[Reason]]:
+    """(overall, per-tap) reasons from the mesh-convergence study."""
+    overall = []
+    if plan["near_srf"]:
+        overall.append(_reason("caution", "convergence-near-srf", srf_ratio=plan["srf_ratio"]))
+    per_tap = []
+    for c in conv:
+        for status, limit in (("unreliable", SPREAD_CAUTION), ("caution", SPREAD_OK)):
+            if c.inductance_spread > limit:
+                per_tap.append(_reason(status, "inductance-spread", tap=c.tap, spread=c.inductance_spread,
+                                       limit=limit))
+                break
+        if c.resistance_spread > R_SPREAD_CAUTION:
+            per_tap.append(_reason("caution", "resistance-spread", tap=c.tap, spread=c.resistance_spread))
+        if c.extrapolated_inductance_h is not None:
+            off = c.inductance_h[1] / c.extrapolated_inductance_h - 1
+            if abs(off) > L_OK:
+                per_tap.append(_reason("caution", "extrapolation", tap=c.tap, deviation=off))
+    return overall, per_tap
+
+
+_RANK = {"ok": 0, "caution": 1, "unreliable": 2}
+
+
+def _status(items) -> str:
+    return max((r.status for r in items), key=_RANK.get, default="ok")
 
 
 def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None,
              mom_ok: bool = True):
-    """ok | caution | unreliable, with the reasons in words (see the README).
+    """ok | caution | unreliable, with the reasons as codes and parameters (see the README).
 
     Without a MoM (mesh too large to solve) the MoM's mesh rules, convergence and self-resonance
     bracket do not apply: the sweep's numbers come from the circuit solver alone."""
-    rank = {"ok": 0, "caution": 1, "unreliable": 2}
-    overall: list[tuple[str, str]] = []
-    per_tap: dict[int, list[tuple[str, str]]] = {n: [] for n in sweep.tap_turns}
-
-    for r in sweep.rules if mom_ok else ():
-        if r.status == "fail":
-            overall.append(("unreliable", f"mesh rule '{r.name}' fails: {r.detail}"))
-        elif r.status == "warn" and r.name in _MESH_RULES_CAUTION:
-            overall.append(("caution", f"mesh rule '{r.name}' warns: {r.detail}"))
-    worst_asym = max((s.asymmetry for s in sweep.solves), default=0.0)
-    if worst_asym > ASYMMETRY_LIMIT:
-        overall.append(("unreliable", f"port-matrix reciprocity defect {worst_asym:.1%} exceeds "
-                                      f"{ASYMMETRY_LIMIT:.0%}"))
-    elif worst_asym > ASYMMETRY_CAUTION:
-        overall.append(("caution", f"port-matrix reciprocity defect {worst_asym:.1%} (above "
-                                   f"{ASYMMETRY_CAUTION:.0%})"))
-    srf_low = np.nanmin(sweep.self_resonance_hz) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
-    top = float(np.max(sweep.model.fit_hz))
-    if srf_low is not None and top > 1.05 * WINDOW_TOP * srf_low:
-        overall.append(("caution", f"the sweep fitted its model up to {top / srf_low:.2f} × self-resonance "
-                                   f"(above {WINDOW_TOP}), so its model points are less certain"))
-
+    overall = (_mesh_reasons(sweep) if mom_ok else []) + _sweep_reasons(sweep)
+    per_tap: dict[int, list[Reason]] = {n: [] for n in sweep.tap_turns}
     for n in sweep.tap_turns:
         rows = [c for c in checks if c.tap == n]
-        per_tap[n] += _inductance_verdict(sweep, n, rows)
-        loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
-        if loss:
-            worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
-            if abs(worst.rel_diff_mom) > R_LOSS_CAUTION:
-                per_tap[n].append(("caution", f"tap {n}: MoM wire loss is {worst.rel_diff_mom:+.1%} from the "
-                                              f"exact skin-effect loss of its path at "
-                                              f"{worst.frequency_hz / 1e6:.3f} MHz"))
-        srf = next((c for c in rows if c.quantity == "SRF"), None)
-        if srf is not None and np.isfinite(sweep.self_resonance_hz[sweep.tap_turns.index(n)]):
-            f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
-            if srf.mom is None:
-                if mom_ok:
-                    per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
-            else:
-                # An SRF misfit δ moves the model's |Z| at the top of the band by about
-                # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
-                delta = srf.mom / f_model - 1
-                x = min((sweep.frequencies_hz.max() / f_model) ** 2, 0.99)
-                in_band = 2 * abs(delta) * x / (1 - x)
-                if in_band > SRF_CAUTION:
-                    per_tap[n].append(("caution", f"tap {n}: direct MoM self-resonance {srf.mom / 1e6:.3f} MHz is "
-                                                  f"{delta:+.1%} from the circuit solver's, which moves the sweep's "
-                                                  f"impedance at the top of the band by about {in_band:.1%}"))
-    for a in agt_rows:
-        if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
-            per_tap[a.tap].append(("unreliable", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
-                                                 f"against accepted power): the MoM input resistance "
-                                                 f"disagrees with its own far field"))
-        elif not a.accepted:
-            per_tap[a.tap].append(("caution", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
-                                              f"against accepted power), beyond ±{AGT_ACCEPT[1] - 1:.0%}: "
-                                              f"its input resistance is "
-                                              f"inconsistent with its far field by {a.agt - 1:+.1%} (radiation "
-                                              f"resistance uncertain by that much)"))
+        per_tap[n] += _inductance_verdict(sweep, n, rows) + _loss_reasons(n, rows) \
+            + _srf_reasons(sweep, n, rows, mom_ok)
+    for r in _power_balance_reasons(agt_rows):
+        per_tap[r.params["tap"]].append(r)
     if convergence_run and conv:
-        if plan["near_srf"]:
-            overall.append(("caution", f"mesh convergence could only be compared at "
-                                       f"{plan['srf_ratio']:.2f} × self-resonance, where the spreads are "
-                                       f"less certain"))
-        for c in conv:
-            text = (f"tap {c.tap}: inductance spread {c.inductance_spread:.1%} over the coarse, sweep and "
-                    f"fine meshes")
-            if c.inductance_spread > SPREAD_CAUTION:
-                per_tap[c.tap].append(("unreliable", text + f" (beyond {SPREAD_CAUTION:.0%})"))
-            elif c.inductance_spread > SPREAD_OK:
-                per_tap[c.tap].append(("caution", text + f" (beyond {SPREAD_OK:.0%})"))
-            if c.resistance_spread > R_SPREAD_CAUTION:
-                per_tap[c.tap].append(("caution", f"tap {c.tap}: resistance spread {c.resistance_spread:.1%} "
-                                                  f"over the meshes (Q less certain)"))
-            if c.extrapolated_inductance_h is not None:
-                off = c.inductance_h[1] / c.extrapolated_inductance_h - 1
-                if abs(off) > L_OK:
-                    per_tap[c.tap].append(("caution", f"tap {c.tap}: the sweep mesh's L is {off:+.1%} from the "
-                                                      f"extrapolated zero-segment value"))
+        conv_overall, conv_taps = _convergence_reasons(conv, plan)
+        overall += conv_overall
+        for r in conv_taps:
+            per_tap[r.params["tap"]].append(r)
     elif convergence_run:
-        overall.append(("caution", "mesh convergence could not be assessed"))
-    elif not mom_ok:
-        pass  # no MoM: nothing of it to converge
-    else:
-        overall.append(("caution", "mesh convergence not checked (--no-convergence)"))
+        overall.append(_reason("caution", "convergence-not-assessed"))
+    elif mom_ok:
+        overall.append(_reason("caution", "convergence-not-checked"))
+    # (no MoM: nothing of it to converge)
 
-    def status(items):
-        return max((s for s, _ in items), key=rank.get, default="ok")
-
-    tap_verdicts = {n: Verdict(status(items), tuple(t for _, t in items)) for n, items in per_tap.items()}
+    tap_verdicts = {n: Verdict(_status(items), tuple(items)) for n, items in per_tap.items()}
     everything = overall + [x for items in per_tap.values() for x in items]
-    reasons = tuple(t for s, t in sorted(everything, key=lambda x: -rank[x[0]]))
-    st = status(everything)
+    st = _status(everything)
+    reasons = tuple(sorted(everything, key=lambda r: -_RANK[r.status]))
     if st == "ok":
-        reasons = ("every tap's inductance (circuit solver, and MoM where it runs) is within 2 % of the "
-                   "quasi-static sum, the mesh-convergence spread is below 2 %, the power balance (radiated "
-                   "over accepted power) is within ±5 % and no mesh rule warns",)
+        reasons = (_reason("ok", "all-within", inductance=L_OK, spread=SPREAD_OK, power_balance=AGT_ACCEPT[1] - 1),)
     return Verdict(st, reasons), tap_verdicts

@@ -194,9 +194,9 @@ def test_average_gain_of_a_lossless_loop_in_free_space():
 def test_mesh_that_violates_the_pitch_rule_is_not_ok():
     good = validated(spec_text("stacked", taps="[4]"), convergence=False)[2]
     bad = validated(spec_text("stacked", taps="[4]", mesh='segment_length = "60 mm"'), convergence=False)[2]
-    assert not any("pitch" in r for r in good.verdict.reasons)
+    assert not any(r.params.get("rule") == "pitch" for r in good.verdict.reasons)
     assert bad.verdict.status in ("caution", "unreliable")
-    assert any("2 x pitch" in r for r in bad.verdict.reasons)
+    assert any(r.code.startswith("mesh-rule-") and r.params["rule"] == "pitch" for r in bad.verdict.reasons)
 
 
 def test_mesh_far_beyond_the_pitch_rule_is_refused_before_validation(tmp_path):
@@ -275,6 +275,7 @@ def test_cli_validate_writes_every_row(tmp_path, capsys):
     for key in ("checks", "convergence", "verdict", "average_gain", "q_used_by_tune", "meshes"):
         assert key in data
     assert data["verdict"]["status"] in ("ok", "caution", "unreliable") and data["verdict"]["reasons"]
+    assert len(data["verdict"]["codes"]) == len(data["verdict"]["reasons"])
     for row in data["checks"]:
         for key in ("quantity", "tap", "frequency_hz", "mom", "quasi_static", "handbook", "source",
                     "rel_diff", "unit"):
