@@ -136,6 +136,17 @@ class LoopGeometry:
         return np.asarray(areas)
 
 
+def turn_sides_m(style: str, width_m: float, height_m: float, pitch_m: float, turns: int):
+    """Centreline sides (width, height) of turns 0 … turns − 1, shape (turns,) each. [m]
+
+    Stacked turns all have the frame's sides; a spiral's turn k is inset by k pitches on every
+    side, so its sides are 2k pitches shorter.
+    """
+    k = np.arange(int(turns))
+    inset = 2 * k * pitch_m if style == "spiral" else np.zeros(k.size)
+    return width_m - inset, height_m - inset
+
+
 def _turn_corners(style: str, k: int, width: float, height: float, pitch: float, turns: int):
     """Corner points P0..P4 of turn k and the start of turn k+1."""
     if style == "stacked":
@@ -249,30 +260,27 @@ def single_tap_circuit(spec, tap_index: int) -> LoopGeometry:
     of the MoM.
     """
     n = spec.taps.turns[tap_index]
+    return loop_from_spec(spec, turns=n, tap_turns=(n,), lead_depths_m=(spec.leads.offset_m * (1 + tap_index),))
+
+
+def loop_from_spec(spec, *, turns: int | None = None, tap_turns: tuple[int, ...] | None = None,
+                   lead_depths_m: tuple[float, ...] | None = None) -> LoopGeometry:
+    """Build the loop geometry described by a :class:`simloop.spec.Spec`.
+
+    ``turns``, ``tap_turns`` and ``lead_depths_m`` replace the spec's (for one tap's own circuit,
+    :func:`single_tap_circuit`, or a loop tapped at one turn count); frame, wire, pitch, lead
+    offset and style always come from the spec.
+    """
     return build_loop(
         width_m=spec.frame.width_m,
         height_m=spec.frame.height_m,
-        turns=n,
+        turns=spec.winding.turns if turns is None else turns,
         pitch_m=spec.winding.pitch_m,
         wire_radius_m=spec.wire.radius_m,
-        tap_turns=(n,),
+        tap_turns=spec.taps.turns if tap_turns is None else tap_turns,
         lead_offset_m=spec.leads.offset_m,
         style=spec.winding.style,
-        lead_depths_m=(spec.leads.offset_m * (1 + tap_index),),
-    )
-
-
-def loop_from_spec(spec) -> LoopGeometry:
-    """Build the loop geometry described by a :class:`simloop.spec.Spec`."""
-    return build_loop(
-        width_m=spec.frame.width_m,
-        height_m=spec.frame.height_m,
-        turns=spec.winding.turns,
-        pitch_m=spec.winding.pitch_m,
-        wire_radius_m=spec.wire.radius_m,
-        tap_turns=spec.taps.turns,
-        lead_offset_m=spec.leads.offset_m,
-        style=spec.winding.style,
+        lead_depths_m=lead_depths_m,
     )
 
 

@@ -44,7 +44,7 @@ from __future__ import annotations
 import dataclasses
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -58,12 +58,14 @@ from simloop.reference import (  # noqa: F401  (sphere_weights: simloop.patterns
     rosa_round_wire_correction,
     sphere_weights,
 )
-from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
+from simloop.constants import MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
-from simloop.geometry import LoopGeometry
+from simloop.geometry import LoopGeometry, turn_sides_m
 from simloop.impedance import ASYMMETRY_LIMIT, MOM_MAX_SEGMENTS, WINDOW_TOP, SweepResult
+from simloop.lumped import series_branch
 from simloop.losses import proximity_factors, proximity_resistance, winding_length_to_turn
-from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
+from simloop.mesh import FLOOR_ABSOLUTE, FLOOR_TRUSTED, KERNEL_WARN, Mesh, build_mesh, mesh_rules
+from simloop.units import FREQUENCY_MATCH_REL, same_frequency
 from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
 
 #: Over real ground, a loss-free input resistance below this is not resolved (docs/notes/pynec.md:
@@ -102,6 +104,11 @@ ASYMMETRY_CAUTION = 0.05
 Q_USED_BY_TUNE = "proximity-corrected"
 #: Far-field grid step for the average gain test. [deg]
 AGT_STEP_DEG = 5.0
+#: Frame sides equal within this are a square (the handbook source then needs no "equal perimeter"). [m]
+SQUARE_TOL_M = 1e-9
+#: Self-resonance brackets of different taps closer than this fraction share their solves, and a
+#: bracket frequency is found among the solves within it (the brackets are 2 × SRF_BRACKET wide). [-]
+SRF_MERGE_REL = 1e-6
 
 
 #: Mesh rules (:attr:`simloop.mesh.Rule.key`) whose warning makes the verdict a caution: those that
@@ -308,11 +315,6 @@ def _quietly(fn, *args, **kwargs):
     return value, [str(w.message) for w in caught]
 
 
-def _series(y: np.ndarray, cap: np.ndarray, f: float) -> np.ndarray:
-    """Series branch of a port matrix with the shunt capacitance removed, (Y − jωC)⁻¹. [Ω]"""
-    return np.linalg.inv(y - 1j * 2 * np.pi * f * cap)
-
-
 def _mesh_run(label, mesh: Mesh, geom: LoopGeometry, spec) -> MeshRun:
     rules = mesh_rules(mesh, geom, spec.sweep.start_hz, spec.sweep.stop_hz, spec.winding.turns)
     return MeshRun(label=label, target_m=mesh.target_m, segments=mesh.n_segments,
@@ -323,9 +325,7 @@ def _mesh_run(label, mesh: Mesh, geom: LoopGeometry, spec) -> MeshRun:
 
 def _turn_sides(spec, n: int) -> tuple[np.ndarray, np.ndarray]:
     """Centre-line sides (width, height) of the first n turns. [m]"""
-    k = np.arange(n)
-    inset = 2 * k * spec.winding.pitch_m if spec.winding.style == "spiral" else np.zeros(n)
-    return spec.frame.width_m - inset, spec.frame.height_m - inset
+    return turn_sides_m(spec.winding.style, spec.frame.width_m, spec.frame.height_m, spec.winding.pitch_m, n)
 
 
 def _handbook_inductance(spec, n: int) -> tuple[float, str]:
@@ -339,7 +339,7 @@ def _handbook_inductance(spec, n: int) -> tuple[float, str]:
         s = 0.5 * (w + h)
         sheet = float(reference.inductance_square_coil_grover1946(s, n, n * p))
         src = (f"Grover 1946 square-coil current-sheet formula (side {s * 1e3:.0f} mm"
-               f"{', square of equal perimeter' if abs(w - h) > 1e-9 else ''}, length N·pitch) "
+               f"{', square of equal perimeter' if abs(w - h) > SQUARE_TOL_M else ''}, length N·pitch) "
                f"+ Rosa 1908 round-wire correction A + B")
         return sheet + rosa_round_wire_correction(4 * s, n, p, d), src
     ws, hs = _turn_sides(spec, n)
@@ -347,7 +347,7 @@ def _handbook_inductance(spec, n: int) -> tuple[float, str]:
     d_in = 0.5 * (ws[-1] + hs[-1]) - d
     src = ("Mohan et al. 1999 current-sheet expression for square spirals (empirical, fitted to planar "
            "spirals; coefficients approximate, to be confirmed against the paper)"
-           + (", mean side of the rectangle" if abs(w - h) > 1e-9 else ""))
+           + (", mean side of the rectangle" if abs(w - h) > SQUARE_TOL_M else ""))
     return inductance_square_spiral_current_sheet(d_out, d_in, n), src
 
 
@@ -435,9 +435,9 @@ def _circuit_values(circuits, sweep: SweepResult, f: float) -> list[dict]:
     with_prox, skin_only, lossless = circuits
     cap = sweep.model.capacitance_f
     w = 2 * np.pi * f
-    zs0 = _series(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
-    zsp = _series(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
-    zsl = _series(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
+    zs0 = series_branch(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
+    zsp = series_branch(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
+    zsl = series_branch(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
     out = []
     for i in range(zs0.shape[0]):
         rr = float(zsl[i, i].real)
@@ -463,8 +463,8 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
     perfect = ground == "perfect"
     ok_l = lossy is not None and not isinstance(lossy, SolverError)
     ok_o = lossless is not None and not isinstance(lossless, SolverError)
-    zs_l = _series(np.linalg.inv(lossy.z), cap, f)[i, i] if ok_l else None
-    zs_o = _series(np.linalg.inv(lossless.z), cap, f)[i, i] if ok_o else None
+    zs_l = series_branch(np.linalg.inv(lossy.z), cap, f)[i, i] if ok_l else None
+    zs_o = series_branch(np.linalg.inv(lossless.z), cap, f)[i, i] if ok_o else None
     fr = _formula_resistances(sweep, i, tf, f)
     rows = []
     # Inductance of the series branch
@@ -556,8 +556,8 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
     srf_mom, note = None, ""
     if np.isfinite(f_model):
         lo_f, hi_f = f_model * (1 - SRF_BRACKET), f_model * (1 + SRF_BRACKET)
-        a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < 1e-6), None)
-        b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < 1e-6), None)
+        a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < SRF_MERGE_REL), None)
+        b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < SRF_MERGE_REL), None)
         if a is None or b is None or isinstance(a, SolverError) or isinstance(b, SolverError):
             note = "direct MoM solves either side of the model's resonance missing or failed"
         else:
@@ -610,7 +610,7 @@ def _check_frequencies(sweep: SweepResult) -> list[float]:
     picks = [fit[0], fit[len(fit) // 2], fit[-1]]
     out = []
     for f in picks:
-        if all(abs(f / g - 1) > 1e-9 for g in out):
+        if not any(same_frequency(f, g) for g in out):
             out.append(float(f))
     return out
 
@@ -640,68 +640,142 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
     ValidationResult
     """
     t_start = time.monotonic()
-    geom, mesh, env = sweep.geometry, sweep.mesh, sweep.environment
-    rho = sweep.resistivity_ohm_m
-    lossless_env = dataclasses.replace(env, wire_conductivity_s_m=None)
-    free_lossless = Environment(wire_conductivity_s_m=None)
-    ground = env.ground
-    notes: list[str] = []
-    freqs = _check_frequencies(sweep)
+    planned = _plan_solves(sweep, convergence)
+    results = solve_many(planned.requests, workers=workers, cache=cache,
+                         progress=(lambda d, t: progress("validate", d, t)) if progress else None)
+    solved = _collect_solves(sweep, planned, results)
+    notes = planned.notes + solved.notes
+    agt_rows, agt_by_tap, agt_notes = (_average_gains(solved.far_field, sweep, planned.agt_hz)
+                                       if planned.mom_ok else ([], {}, []))
+    notes += agt_notes
+    checks = tuple(_all_checks(spec, sweep, planned, solved, agt_by_tap))
+    if sweep.environment.ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
+        notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
+                     "below the solver's resolution: radiation resistance not validated there; the "
+                     "power balance ran in free space")
+    meshes: list[MeshRun] = []
+    conv: list[Convergence] = []
+    if planned.convergence is not None:
+        meshes, conv, conv_notes = _convergence(spec, sweep, planned.convergence, solved.convergence)
+        notes += conv_notes
+    elif convergence:
+        notes.append("mesh convergence needs three solvable meshes; not assessed")
+    verdict, tap_verdicts = _verdict(sweep, checks, conv, agt_rows, convergence and planned.mom_ok,
+                                     planned.convergence, planned.mom_ok)
+    return ValidationResult(
+        name=sweep.name,
+        tap_turns=tuple(sweep.tap_turns),
+        style=spec.winding.style,
+        ground=sweep.environment.ground,
+        checks=checks,
+        meshes=tuple(meshes),
+        convergence=tuple(conv),
+        average_gain=tuple(agt_rows),
+        verdict=verdict,
+        tap_verdicts=tap_verdicts,
+        check_frequencies_hz=np.array(planned.frequencies_hz),
+        convergence_frequency_hz=None if planned.convergence is None else planned.convergence["frequency_hz"],
+        agt_frequency_hz=None if isinstance(solved.far_field, SolverError) else planned.agt_hz,
+        inductance_h=sweep.inductance_h,
+        inductance_error=np.asarray(sweep.inductance_error, dtype=float),
+        quasi_static_inductance_h=np.asarray(sweep.quasi_static_inductance_h, dtype=float),
+        self_resonance_hz=np.asarray(sweep.self_resonance_hz, dtype=float),
+        sweep_mesh=_mesh_run("sweep", sweep.mesh, sweep.geometry, spec),
+        notes=tuple(notes + ([sweep.window_note] if sweep.window_note else [])),
+        seconds=time.monotonic() - t_start,
+    )
 
-    # --- Every extra MoM solve, planned up front and run in one worker pool -----------------
-    requests: list[SolveRequest] = []
-    index: dict = {}
 
-    def add(m, e, f, kind="ports"):
+@dataclass
+class _PlannedSolves:
+    """Every extra MoM solve of a validation, planned up front to run in one worker pool, and
+    where each check finds its solve (indices into ``requests``)."""
+
+    frequencies_hz: list
+    mom_ok: bool
+    agt_hz: float
+    requests: list = field(default_factory=list)
+    index: dict = field(default_factory=dict)
+    lossy: dict = field(default_factory=dict)
+    lossless: dict = field(default_factory=dict)
+    far_field: int | None = None
+    srf: dict = field(default_factory=dict)
+    convergence: dict | None = None
+    convergence_index: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+
+    def add(self, m, e, f, kind="ports") -> int:
         key = (id(m), e, round(float(f), 3), kind)
-        if key not in index:
-            index[key] = len(requests)
-            requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
-        return index[key]
+        if key not in self.index:
+            self.index[key] = len(self.requests)
+            self.requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
+        return self.index[key]
 
+
+def _plan_solves(sweep: SweepResult, convergence: bool) -> _PlannedSolves:
+    """Lossy and lossless solves at the check frequencies, the far field of the power balance, the
+    brackets of each self-resonance and the convergence meshes."""
+    mesh, env = sweep.mesh, sweep.environment
+    freqs = _check_frequencies(sweep)
     # The MoM is checked where it can be: at most MOM_MAX_SEGMENTS, above its absolute floor.
     mom_ok = mesh.n_segments <= MOM_MAX_SEGMENTS
-    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
-    f7 = mesh.floor_frequency_hz(FLOOR_TRUSTED)
-    mom_freqs = [f for f in freqs if f >= f5] if mom_ok else []
+    f_floor_abs = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
+    p = _PlannedSolves(freqs, mom_ok, max(freqs[-1], mesh.floor_frequency_hz(FLOOR_TRUSTED)))
+    mom_freqs = [f for f in freqs if f >= f_floor_abs] if mom_ok else []
     if not mom_ok:
-        notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
-                     f"MoM solve is attempted for; the circuit solver is checked against the formulas")
+        p.notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
+                       f"MoM solve is attempted for; the circuit solver is checked against the formulas")
     elif len(mom_freqs) < len(freqs):
-        notes.append(f"MoM column empty below its floor {f5 / 1e6:.3f} MHz (segments < 5e-5 λ)")
-    agt_f = max(freqs[-1], f7)
-    i_lossy = {f: add(mesh, env, f) for f in mom_freqs}
-    i_ff = add(mesh, free_lossless, agt_f, "far_field") if mom_ok else None
-    if rho is None:
-        i_lossless = dict(i_lossy)
+        p.notes.append(f"MoM column empty below its floor {f_floor_abs / 1e6:.3f} MHz (segments < 5e-5 λ)")
+    p.lossy = {f: p.add(mesh, env, f) for f in mom_freqs}
+    if mom_ok:
+        p.far_field = p.add(mesh, Environment(wire_conductivity_s_m=None), p.agt_hz, "far_field")
+    if sweep.resistivity_ohm_m is None:
+        p.lossless = dict(p.lossy)
     else:
-        i_lossless = {f: add(mesh, lossless_env, f) for f in mom_freqs
-                      if not (ground == "free-space" and f == agt_f)}
+        lossless_env = dataclasses.replace(env, wire_conductivity_s_m=None)
+        p.lossless = {f: p.add(mesh, lossless_env, f) for f in mom_freqs
+                      if not (env.ground == "free-space" and f == p.agt_hz)}
     # Direct MoM self-resonance: bracket either side of each distinct circuit prediction.
     srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
-    i_srf: dict[float, int] = {}
     for f in srf_model[np.isfinite(srf_model)] if mom_ok else []:
         for g in (f * (1 - SRF_BRACKET), f * (1 + SRF_BRACKET)):
-            if g >= f5 and all(abs(g / b - 1) > 1e-6 for b in i_srf):
-                i_srf[float(g)] = add(mesh, env, g)
-    plan = _convergence_plan(sweep) if convergence and mom_ok else None
-    if plan is not None:
-        notes += plan["notes"]
-        i_conv = {label: add(m, env, plan["frequency_hz"]) for label, m in plan["meshes"]}
-    results = solve_many(requests, workers=workers, cache=cache,
-                         progress=(lambda d, t: progress("validate", d, t)) if progress else None)
-    lossy = {f: results[j] for f, j in i_lossy.items()}
-    ff = results[i_ff] if i_ff is not None else SolverError("no MoM: mesh too large")
-    lossless = {f: results[j] for f, j in i_lossless.items()}
-    if ground == "free-space" and rho is not None and not isinstance(ff, SolverError):
-        lossless[agt_f] = ff  # the same lossless free-space factorisation
-    srf_solves = {g: results[j] for g, j in i_srf.items()}
-    failed = sorted({str(r) for r in results if isinstance(r, SolverError)})
-    notes += [f"solve failed, checks that need it are omitted: {m}" for m in failed]
+            if g >= f_floor_abs and all(abs(g / b - 1) > SRF_MERGE_REL for b in p.srf):
+                p.srf[float(g)] = p.add(mesh, env, g)
+    p.convergence = _convergence_plan(sweep) if convergence and mom_ok else None
+    if p.convergence is not None:
+        p.notes += p.convergence["notes"]
+        p.convergence_index = {label: p.add(m, env, p.convergence["frequency_hz"])
+                               for label, m in p.convergence["meshes"]}
+    return p
 
-    # --- Rows ---------------------------------------------------------------------------------
-    agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f) if mom_ok else ([], {}, [])
-    notes += agt_notes
+
+@dataclass(frozen=True)
+class _Solved:
+    lossy: dict
+    lossless: dict
+    far_field: object
+    srf: dict
+    convergence: dict
+    notes: list
+
+
+def _collect_solves(sweep: SweepResult, p: _PlannedSolves, results) -> _Solved:
+    """The results by purpose; failed solves become notes (their checks are omitted)."""
+    ff = results[p.far_field] if p.far_field is not None else SolverError("no MoM: mesh too large")
+    lossless = {f: results[j] for f, j in p.lossless.items()}
+    if sweep.environment.ground == "free-space" and sweep.resistivity_ohm_m is not None \
+            and not isinstance(ff, SolverError):
+        lossless[p.agt_hz] = ff  # the same lossless free-space factorisation
+    failed = sorted({str(r) for r in results if isinstance(r, SolverError)})
+    return _Solved(lossy={f: results[j] for f, j in p.lossy.items()}, lossless=lossless, far_field=ff,
+                   srf={g: results[j] for g, j in p.srf.items()},
+                   convergence={lb: results[j] for lb, j in p.convergence_index.items()},
+                   notes=[f"solve failed, checks that need it are omitted: {m}" for m in failed])
+
+
+def _circuit_columns(sweep: SweepResult):
+    """The circuit solver's values per frequency (memoised) and its L0 per tap."""
     circuits = None if sweep.circuit is None else (
         sweep.circuit, sweep.circuit.with_proximity(False),
         dataclasses.replace(sweep.circuit, resistivity_ohm_m=None))
@@ -716,6 +790,13 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
 
     circ_l0 = [None if sweep.circuit is None else {"L0": float(sweep.circuit_inductance_h[i, i])}
                for i in range(len(sweep.tap_turns))]
+    return circ_values, circ_l0
+
+
+def _all_checks(spec, sweep: SweepResult, p: _PlannedSolves, solved: _Solved, agt_by_tap: dict) -> list[Check]:
+    """Every row of the comparison, tap by tap: L0, the per-frequency rows, the band Q and SRF."""
+    circ_values, circ_l0 = _circuit_columns(sweep)
+    srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
     checks: list[Check] = []
     for i, n in enumerate(sweep.tap_turns):
         tf = _tap_formulas(spec, sweep, i)
@@ -725,54 +806,13 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
         l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, "fitted MoM model (sweep), L0",
                         _SRC_QS_L, tf.src_hb, note=l0_note)
         checks.append(_add_circuit([l0_row], circ_l0[i])[0])
-        for f in freqs:
-            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, lossy.get(f), lossless.get(f),
-                                                     agt_by_tap.get(i) if f == agt_f else None),
+        for f in p.frequencies_hz:
+            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
+                                                     agt_by_tap.get(i) if f == p.agt_hz else None),
                                    circ_values(f)[i])
         checks += [_add_circuit([r], circ_values(r.frequency_hz)[i])[0] for r in _band_q_checks(spec, sweep, i, tf)]
-        checks.append(_add_circuit([_srf_check(spec, sweep, i, srf_solves)], {"SRF": srf_model[i]})[0])
-
-    if ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
-        notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
-                     "below the solver's resolution: radiation resistance not validated there; the "
-                     "power balance ran in free space")
-
-    # --- Mesh convergence --------------------------------------------------------------------
-    sweep_run = _mesh_run("sweep", mesh, geom, spec)
-    meshes: list[MeshRun] = []
-    conv: list[Convergence] = []
-    f_conv = None
-    if plan is not None:
-        f_conv = plan["frequency_hz"]
-        meshes, conv, conv_notes = _convergence(spec, sweep, plan, {lb: results[j] for lb, j in i_conv.items()})
-        notes += conv_notes
-    elif convergence:
-        notes.append("mesh convergence needs three solvable meshes; not assessed")
-
-    checks_t = tuple(checks)
-    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence and mom_ok, plan, mom_ok)
-    return ValidationResult(
-        name=sweep.name,
-        tap_turns=tuple(sweep.tap_turns),
-        style=spec.winding.style,
-        ground=ground,
-        checks=checks_t,
-        meshes=tuple(meshes),
-        convergence=tuple(conv),
-        average_gain=tuple(agt_rows),
-        verdict=verdict,
-        tap_verdicts=tap_verdicts,
-        check_frequencies_hz=np.array(freqs),
-        convergence_frequency_hz=f_conv,
-        agt_frequency_hz=None if isinstance(ff, SolverError) else agt_f,
-        inductance_h=sweep.inductance_h,
-        inductance_error=np.asarray(sweep.inductance_error, dtype=float),
-        quasi_static_inductance_h=np.asarray(sweep.quasi_static_inductance_h, dtype=float),
-        self_resonance_hz=srf_model,
-        sweep_mesh=sweep_run,
-        notes=tuple(notes + ([sweep.window_note] if sweep.window_note else [])),
-        seconds=time.monotonic() - t_start,
-    )
+        checks.append(_add_circuit([_srf_check(spec, sweep, i, solved.srf)], {"SRF": srf_model[i]})[0])
+    return checks
 
 
 def _convergence_plan(sweep: SweepResult) -> dict | None:
@@ -783,20 +823,20 @@ def _convergence_plan(sweep: SweepResult) -> dict | None:
                   ("sweep", sweep.mesh),
                   ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
     for label, m in candidates:
-        if m.shortest_m < 2 * m.radius_m or m.n_segments > MAX_SEGMENTS:
+        if m.shortest_m < KERNEL_WARN * m.radius_m or m.n_segments > MAX_SEGMENTS:
             return None
     srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
-    f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
-    f5 = max(m.floor_frequency_hz(FLOOR_ABSOLUTE) for _, m in candidates)
+    f_floor = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
+    f_floor_abs = max(m.floor_frequency_hz(FLOOR_ABSOLUTE) for _, m in candidates)
     near_srf = False
-    if srf is None or f7 <= 0.6 * srf:
-        f_c = f7
+    if srf is None or f_floor <= WINDOW_TOP * srf:
+        f_c = f_floor
     else:
-        f_c = max(f5, 0.6 * srf)
-        near_srf = f_c > 0.6 * srf * (1 + 1e-9)
+        f_c = max(f_floor_abs, WINDOW_TOP * srf)
+        near_srf = f_c > WINDOW_TOP * srf * (1 + FREQUENCY_MATCH_REL)
         notes.append(f"mesh convergence compared at {f_c / 1e6:.3f} MHz = {f_c / srf:.2f} × self-resonance: "
-                     f"the finest mesh's floor (7e-5 λ) lies at {f7 / 1e6:.3f} MHz, "
-                     + ("so the floor was relaxed towards 5e-5 λ" if f_c < f7 else "")
+                     f"the finest mesh's floor (7e-5 λ) lies at {f_floor / 1e6:.3f} MHz, "
+                     + ("so the floor was relaxed towards 5e-5 λ" if f_c < f_floor else "")
                      + (" and the shunt-capacitance correction is large there" if near_srf else ""))
     return {"meshes": candidates, "frequency_hz": float(f_c), "near_srf": near_srf,
             "srf_ratio": None if srf is None else f_c / srf, "notes": notes}
@@ -814,7 +854,7 @@ def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
     segs = np.array([r.winding_segment_m for r in runs])
     w = 2 * np.pi * f_c
     conv = []
-    zs = [_series(s.y, model.capacitance_f, f_c) for s in results]
+    zs = [series_branch(s.y, model.capacitance_f, f_c) for s in results]
     for i, n in enumerate(sweep.tap_turns):
         l_s = np.array([z[i, i].imag / w for z in zs])
         r_s = np.array([z[i, i].real for z in zs])
