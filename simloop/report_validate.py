@@ -2,29 +2,22 @@
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np
 
 from simloop import __version__
-from simloop.report import write_json
+from simloop.report import number_or_none, write_json
 from simloop.validation import (
     AGT_ACCEPT,
     AGT_STEP_DEG,
     BELOW_RESOLUTION,
     RICHARDSON_ORDER,
+    WINDOW_TOP,
     Reason,
     ValidationResult,
     Verdict,
 )
-
-
-def _num(x):
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 def _where(f) -> str:
@@ -121,78 +114,66 @@ def trend_text(code: str, params: dict) -> str:
     raise ValueError(f"unknown convergence trend code {code!r}")
 
 
-def validation_dict(result: ValidationResult) -> dict:
-    """Everything ``simloop validate`` reports, as JSON-ready data."""
-    checks = []
-    for c in result.checks:
-        checks.append({
-            "quantity": c.quantity,
-            "unit": c.unit,
-            "tap": c.tap,
-            "frequency_hz": _num(c.frequency_hz),
-            "mom": _num(c.mom),
-            "circuit": _num(c.circuit),
-            "quasi_static": _num(c.quasi_static),
-            "handbook": _num(c.handbook),
-            "source": {"mom": c.source_mom, "circuit": c.source_circuit,
-                       "quasi_static": c.source_quasi_static, "handbook": c.source_handbook},
-            "reference": c.reference,
-            "rel_diff": {"mom": _num(c.rel_diff_mom), "circuit": _num(c.rel_diff_circuit),
-                         "handbook": _num(c.rel_diff_handbook)},
-            "flag": c.flag,
-            "note": c.note,
-        })
-    labels = [m.label for m in result.meshes]
-    convergence = []
-    for c in result.convergence:
-        convergence.append({
-            "tap": c.tap,
-            "frequency_hz": c.frequency_hz,
-            "meshes": labels,
-            "winding_segment_m": [m.winding_segment_m for m in result.meshes],
-            "inductance_h": [float(v) for v in c.inductance_h],
-            "apparent_inductance_h": [float(v) for v in c.apparent_inductance_h],
-            "resistance_ohm": [float(v) for v in c.resistance_ohm],
-            "inductance_spread": c.inductance_spread,
-            "resistance_spread": c.resistance_spread,
-            "extrapolated_inductance_h": _num(c.extrapolated_inductance_h),
-            "observed_order": _num(c.observed_order),
-            "richardson_order": RICHARDSON_ORDER,
-            "note": trend_text(c.trend_code, c.trend_params),
-            "trend": {"code": c.trend_code, "params": c.trend_params},
-        })
-
-    def mesh_entry(m):
-        return {"label": m.label, "segments": m.segments, "target_m": m.target_m,
-                "winding_segment_m": m.winding_segment_m, "segment_over_pitch": m.segment_over_pitch,
-                "floor_hz": m.floor_hz,
-                "rules": [{"rule": r.name, "key": r.key, "status": r.status, "detail": r.detail} for r in m.rules]}
-
-    taps = {}
-    for i, n in enumerate(result.tap_turns):
-        v = result.tap_verdicts[n]
-        taps[str(n)] = {
-            "turns": n,
-            "inductance_h": float(result.inductance_h[i]),
-            "inductance_error": float(result.inductance_error[i]),
-            "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
-            "self_resonance_hz": _num(result.self_resonance_hz[i]),
-            "verdict": verdict_dict(v),
-        }
+def _check_entry(c) -> dict:
     return {
-        "simloop_version": __version__,
-        "command": "validate",
-        "name": result.name,
-        "ground": result.ground,
-        "verdict": verdict_dict(result.verdict),
-        "q_used_by_tune": result.q_used_by_tune,
-        "check_frequencies_hz": [float(f) for f in result.check_frequencies_hz],
-        "taps": taps,
-        "checks": checks,
-        "convergence": convergence,
-        "convergence_frequency_hz": _num(result.convergence_frequency_hz),
-        "meshes": [mesh_entry(m) for m in result.meshes] or [mesh_entry(result.sweep_mesh)],
-        # "average_gain" kept for existing readers; "power_balance" says the same in plain words.
+        "quantity": c.quantity,
+        "unit": c.unit,
+        "tap": c.tap,
+        "frequency_hz": number_or_none(c.frequency_hz),
+        "mom": number_or_none(c.mom),
+        "circuit": number_or_none(c.circuit),
+        "quasi_static": number_or_none(c.quasi_static),
+        "handbook": number_or_none(c.handbook),
+        "source": {"mom": c.source_mom, "circuit": c.source_circuit,
+                   "quasi_static": c.source_quasi_static, "handbook": c.source_handbook},
+        "reference": c.reference,
+        "rel_diff": {"mom": number_or_none(c.rel_diff_mom), "circuit": number_or_none(c.rel_diff_circuit),
+                     "handbook": number_or_none(c.rel_diff_handbook)},
+        "flag": c.flag,
+        "note": c.note,
+    }
+
+
+def _convergence_entry(c, meshes) -> dict:
+    return {
+        "tap": c.tap,
+        "frequency_hz": c.frequency_hz,
+        "meshes": [m.label for m in meshes],
+        "winding_segment_m": [m.winding_segment_m for m in meshes],
+        "inductance_h": [float(v) for v in c.inductance_h],
+        "apparent_inductance_h": [float(v) for v in c.apparent_inductance_h],
+        "resistance_ohm": [float(v) for v in c.resistance_ohm],
+        "inductance_spread": c.inductance_spread,
+        "resistance_spread": c.resistance_spread,
+        "extrapolated_inductance_h": number_or_none(c.extrapolated_inductance_h),
+        "observed_order": number_or_none(c.observed_order),
+        "richardson_order": RICHARDSON_ORDER,
+        "note": trend_text(c.trend_code, c.trend_params),
+        "trend": {"code": c.trend_code, "params": c.trend_params},
+    }
+
+
+def _mesh_entry(m) -> dict:
+    return {"label": m.label, "segments": m.segments, "target_m": m.target_m,
+            "winding_segment_m": m.winding_segment_m, "segment_over_pitch": m.segment_over_pitch,
+            "floor_hz": m.floor_hz,
+            "rules": [{"rule": r.name, "key": r.key, "status": r.status, "detail": r.detail} for r in m.rules]}
+
+
+def _tap_entries(result: ValidationResult) -> dict:
+    return {str(n): {
+        "turns": n,
+        "inductance_h": float(result.inductance_h[i]),
+        "inductance_error": float(result.inductance_error[i]),
+        "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
+        "self_resonance_hz": number_or_none(result.self_resonance_hz[i]),
+        "verdict": verdict_dict(result.tap_verdicts[n]),
+    } for i, n in enumerate(result.tap_turns)}
+
+
+def _power_balance_entries(result: ValidationResult) -> dict:
+    """"average_gain" kept for existing readers; "power_balance" says the same in plain words."""
+    return {
         "power_balance": {
             "quantity": "radiated power over accepted power, lossless wire, free space",
             "taps": [{"tap": a.tap, "radiated_power_w": a.radiated_power_w,
@@ -200,7 +181,7 @@ def validation_dict(result: ValidationResult) -> dict:
                       "passed": a.accepted} for a in result.average_gain],
         },
         "average_gain": {
-            "frequency_hz": _num(result.agt_frequency_hz),
+            "frequency_hz": number_or_none(result.agt_frequency_hz),
             "accept": list(AGT_ACCEPT),
             "configuration": "lossless wire, free space, each tap driven alone (other taps open)",
             "grid": f"θ 0–180°, φ 0–{360 - AGT_STEP_DEG:g}° in {AGT_STEP_DEG:g}° steps; Simpson in θ "
@@ -209,6 +190,25 @@ def validation_dict(result: ValidationResult) -> dict:
                       "input_power_w": a.input_power_w, "input_resistance_ohm": a.input_resistance_ohm,
                       "accepted": a.accepted} for a in result.average_gain],
         },
+    }
+
+
+def validation_dict(result: ValidationResult) -> dict:
+    """Everything ``simloop validate`` reports, as JSON-ready data."""
+    return {
+        "simloop_version": __version__,
+        "command": "validate",
+        "name": result.name,
+        "ground": result.ground,
+        "verdict": verdict_dict(result.verdict),
+        "q_used_by_tune": result.q_used_by_tune,
+        "check_frequencies_hz": [float(f) for f in result.check_frequencies_hz],
+        "taps": _tap_entries(result),
+        "checks": [_check_entry(c) for c in result.checks],
+        "convergence": [_convergence_entry(c, result.meshes) for c in result.convergence],
+        "convergence_frequency_hz": number_or_none(result.convergence_frequency_hz),
+        "meshes": [_mesh_entry(m) for m in result.meshes] or [_mesh_entry(result.sweep_mesh)],
+        **_power_balance_entries(result),
         "notes": list(result.notes),
         "seconds": result.seconds,
     }
@@ -252,109 +252,130 @@ def _mhz(f) -> str:
     return "-" if f is None else f"{f / 1e6:.3f}"
 
 
-def format_validate_table(result: ValidationResult) -> str:
-    """The comparison table, fixed width, as printed by ``simloop validate``."""
-    lines = []
-    sources: list[str] = []
+class _Sources:
+    """Numbered list of the sources named in the table's src column."""
 
-    def src(text):
+    def __init__(self):
+        self.texts: list[str] = []
+
+    def number(self, text) -> str:
         if text is None:
             return "-"
-        if text not in sources:
-            sources.append(text)
-        return str(sources.index(text) + 1)
+        if text not in self.texts:
+            self.texts.append(text)
+        return str(self.texts.index(text) + 1)
 
+
+def _table_header(result: ValidationResult) -> list[str]:
     m = result.sweep_mesh
-    lines.append(f"Validation of {result.name}: {len(result.tap_turns)} taps ({', '.join(map(str, result.tap_turns))} "
-                 f"turns), {result.style} winding, {result.ground}")
-    lines.append(f"mesh: {m.segments} segments, winding segment {m.winding_segment_m * 1e3:.2f} mm = "
-                 f"{m.segment_over_pitch:.2f} × pitch; direct MoM trusted above {m.floor_hz / 1e6:.3f} MHz")
-    lines.append(f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the band below "
-                 f"0.6 × self-resonance; MoM only above its floor)")
-    lines.append("MoM = method of moments; PEEC = circuit solver of the same path (what the sweep reports); "
-                 "QS = quasi-static formulas of the real wire path; HB = handbook formula")
-    lines.append("ΔMoM, ΔPEEC, ΔHB: relative difference from QS (from MoM where QS has no value); "
-                 "series values have the fitted self-capacitance removed")
-    header = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'PEEC':>12}  {'QS':>12}  {'HB':>12}  "
-              f"{'ΔMoM':>8}  {'ΔPEEC':>8}  {'ΔHB':>8}  src")
-    for i, n in enumerate(result.tap_turns):
-        v = result.tap_verdicts[n]
-        lines.append("")
-        lines.append(f"tap {n} turns: L0 = {result.inductance_h[i] * 1e6:.3f} µH ± {result.inductance_error[i]:.1%} "
-                     f"(sweep), quasi-static {result.quasi_static_inductance_h[i] * 1e6:.3f} µH; "
-                     f"verdict {v.status}")
-        lines.append(header)
-        lines.append("  " + "-" * (len(header) - 2))
-        previous_f = "start"
-        for c in (c for c in result.checks if c.tap == n):
-            if c.frequency_hz is not None and previous_f not in ("start", None) and c.frequency_hz != previous_f \
-                    and c.quantity != "Q tune":
-                lines.append("")
-            previous_f = c.frequency_hz
-            mom = "< resolution" if c.flag == BELOW_RESOLUTION else _si(c.mom, c.unit)
-            hb_d = _pct(c.rel_diff_handbook)
-            if c.reference == "mom" and c.rel_diff_handbook is not None:
-                hb_d += "*"
-            s = "/".join(src(x) for x in (c.source_mom, c.source_circuit, c.source_quasi_static, c.source_handbook))
-            lines.append(f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
-                         f"{_si(c.circuit, c.unit):>12}  "
-                         f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
-                         f"{_pct(c.rel_diff_mom):>8}  {_pct(c.rel_diff_circuit):>8}  {hb_d:>8}  {s}")
-        for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.note):
-            lines.append(f"  {c.quantity}: {c.note}")
-        flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
-        if flagged is not None:
-            lines.append(f"  {flagged.quantity}: {flagged.note}")
-    if any(c.reference == "mom" and c.rel_diff_handbook is not None for c in result.checks):
-        lines.append("  * relative to MoM (no quasi-static value)")
+    return [
+        f"Validation of {result.name}: {len(result.tap_turns)} taps ({', '.join(map(str, result.tap_turns))} "
+        f"turns), {result.style} winding, {result.ground}",
+        f"mesh: {m.segments} segments, winding segment {m.winding_segment_m * 1e3:.2f} mm = "
+        f"{m.segment_over_pitch:.2f} × pitch; direct MoM trusted above {m.floor_hz / 1e6:.3f} MHz",
+        f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the band below "
+        f"{WINDOW_TOP} × self-resonance; MoM only above its floor)",
+        "MoM = method of moments; PEEC = circuit solver of the same path (what the sweep reports); "
+        "QS = quasi-static formulas of the real wire path; HB = handbook formula",
+        "ΔMoM, ΔPEEC, ΔHB: relative difference from QS (from MoM where QS has no value); "
+        "series values have the fitted self-capacitance removed",
+    ]
 
-    # Convergence
-    lines.append("")
-    if result.convergence:
-        lines.append(f"mesh convergence at {_mhz(result.convergence_frequency_hz)} MHz "
-                     f"(series L and R, fitted self-capacitance removed):")
-        lines.append(f"  {'mesh':<7} {'segments':>8} {'Δ [mm]':>7} {'Δ/pitch':>7}  rules that warn or fail")
-        for mr in result.meshes:
-            bad = [f"{r.name} ({r.status})" for r in mr.rules
-                   if r.status != "pass" and r.key not in ("floor", "size")]
-            lines.append(f"  {mr.label:<7} {mr.segments:>8} {mr.winding_segment_m * 1e3:>7.2f} "
-                         f"{mr.segment_over_pitch:>7.2f}  {'; '.join(bad) or '-'}")
-        labels = [mr.label for mr in result.meshes]
-        lines.append(f"  {'tap':<4} " + " ".join(f"{'L ' + lb:>12}" for lb in labels)
-                     + f" {'L spread':>9} {'R spread':>9} {'L extrap.':>12}  trend")
-        for c in result.convergence:
-            est = "-" if c.extrapolated_inductance_h is None else _si(c.extrapolated_inductance_h, "H")
-            lines.append(f"  {c.tap:<4} " + " ".join(f"{_si(v, 'H'):>12}" for v in c.inductance_h)
-                         + f" {c.inductance_spread:>9.2%} {c.resistance_spread:>9.2%} {est:>12}  {trend_text(c.trend_code, c.trend_params)}")
-    else:
-        lines.append("mesh convergence: not assessed")
 
-    # Average gain
-    lines.append("")
-    if result.average_gain:
-        lines.append(f"power balance at {_mhz(result.agt_frequency_hz)} MHz (lossless wire, free space, each "
-                     f"tap driven alone): power radiated into the far field against power accepted at "
-                     f"the port; a lossless model must radiate all it accepts (pass within "
-                     f"±{(AGT_ACCEPT[1] - 1):.0%}):")
-        for a in result.average_gain:
-            lines.append(f"  tap {a.tap}: radiated {a.radiated_power_w:.4g} W of {a.input_power_w:.4g} W "
-                         f"accepted, {a.agt - 1:+.1%}  "
-                         f"{'pass' if a.accepted else 'FAIL: input resistance and far field disagree'}")
-    else:
-        lines.append("power balance (radiated against accepted power): not run")
+_COLUMNS = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'PEEC':>12}  {'QS':>12}  {'HB':>12}  "
+            f"{'ΔMoM':>8}  {'ΔPEEC':>8}  {'ΔHB':>8}  src")
 
-    lines.append("")
-    lines.append(f"Q used by tune: {result.q_used_by_tune} (rows 'Q skin+prox' and 'Q tune'); "
-                 f"NEC's wire loss models the skin effect only")
-    lines.append(f"VERDICT: {result.verdict.status.upper()}")
-    for r in verdict_texts(result.verdict):
-        lines.append(f"  - {r}")
+
+def _check_line(c, sources: _Sources) -> str:
+    mom = "< resolution" if c.flag == BELOW_RESOLUTION else _si(c.mom, c.unit)
+    hb_d = _pct(c.rel_diff_handbook)
+    if c.reference == "mom" and c.rel_diff_handbook is not None:
+        hb_d += "*"
+    src = "/".join(sources.number(x) for x in (c.source_mom, c.source_circuit, c.source_quasi_static,
+                                                c.source_handbook))
+    return (f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
+            f"{_si(c.circuit, c.unit):>12}  "
+            f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
+            f"{_pct(c.rel_diff_mom):>8}  {_pct(c.rel_diff_circuit):>8}  {hb_d:>8}  {src}")
+
+
+def _tap_table(result: ValidationResult, i: int, n: int, sources: _Sources) -> list[str]:
+    v = result.tap_verdicts[n]
+    lines = ["", f"tap {n} turns: L0 = {result.inductance_h[i] * 1e6:.3f} µH ± {result.inductance_error[i]:.1%} "
+                 f"(sweep), quasi-static {result.quasi_static_inductance_h[i] * 1e6:.3f} µH; "
+                 f"verdict {v.status}",
+             _COLUMNS, "  " + "-" * (len(_COLUMNS) - 2)]
+    previous_f = "start"
+    for c in (c for c in result.checks if c.tap == n):
+        if c.frequency_hz is not None and previous_f not in ("start", None) and c.frequency_hz != previous_f \
+                and c.quantity != "Q tune":
+            lines.append("")
+        previous_f = c.frequency_hz
+        lines.append(_check_line(c, sources))
+    for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.note):
+        lines.append(f"  {c.quantity}: {c.note}")
+    flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
+    if flagged is not None:
+        lines.append(f"  {flagged.quantity}: {flagged.note}")
+    return lines
+
+
+def _convergence_table(result: ValidationResult) -> list[str]:
+    if not result.convergence:
+        return ["", "mesh convergence: not assessed"]
+    lines = ["", f"mesh convergence at {_mhz(result.convergence_frequency_hz)} MHz "
+                 f"(series L and R, fitted self-capacitance removed):",
+             f"  {'mesh':<7} {'segments':>8} {'Δ [mm]':>7} {'Δ/pitch':>7}  rules that warn or fail"]
+    for mr in result.meshes:
+        bad = [f"{r.name} ({r.status})" for r in mr.rules if r.status != "pass" and r.key not in ("floor", "size")]
+        lines.append(f"  {mr.label:<7} {mr.segments:>8} {mr.winding_segment_m * 1e3:>7.2f} "
+                     f"{mr.segment_over_pitch:>7.2f}  {'; '.join(bad) or '-'}")
+    labels = [mr.label for mr in result.meshes]
+    lines.append(f"  {'tap':<4} " + " ".join(f"{'L ' + lb:>12}" for lb in labels)
+                 + f" {'L spread':>9} {'R spread':>9} {'L extrap.':>12}  trend")
+    for c in result.convergence:
+        est = "-" if c.extrapolated_inductance_h is None else _si(c.extrapolated_inductance_h, "H")
+        lines.append(f"  {c.tap:<4} " + " ".join(f"{_si(v, 'H'):>12}" for v in c.inductance_h)
+                     + f" {c.inductance_spread:>9.2%} {c.resistance_spread:>9.2%} {est:>12}  "
+                       f"{trend_text(c.trend_code, c.trend_params)}")
+    return lines
+
+
+def _power_balance_table(result: ValidationResult) -> list[str]:
+    if not result.average_gain:
+        return ["", "power balance (radiated against accepted power): not run"]
+    lines = ["", f"power balance at {_mhz(result.agt_frequency_hz)} MHz (lossless wire, free space, each "
+                 f"tap driven alone): power radiated into the far field against power accepted at "
+                 f"the port; a lossless model must radiate all it accepts (pass within "
+                 f"±{(AGT_ACCEPT[1] - 1):.0%}):"]
+    for a in result.average_gain:
+        lines.append(f"  tap {a.tap}: radiated {a.radiated_power_w:.4g} W of {a.input_power_w:.4g} W "
+                     f"accepted, {a.agt - 1:+.1%}  "
+                     f"{'pass' if a.accepted else 'FAIL: input resistance and far field disagree'}")
+    return lines
+
+
+def _table_footer(result: ValidationResult, sources: _Sources) -> list[str]:
+    lines = ["", f"Q used by tune: {result.q_used_by_tune} (rows 'Q skin+prox' and 'Q tune'); "
+                 f"NEC's wire loss models the skin effect only",
+             f"VERDICT: {result.verdict.status.upper()}"]
+    lines += [f"  - {r}" for r in verdict_texts(result.verdict)]
     if result.notes:
         lines.append("notes:")
-        for note in result.notes:
-            lines.append(f"  - {note}")
+        lines += [f"  - {note}" for note in result.notes]
     lines.append("sources (MoM/QS/HB column numbers above):")
-    for k, s in enumerate(sources, start=1):
-        lines.append(f"  {k}. {s}")
+    lines += [f"  {k}. {s}" for k, s in enumerate(sources.texts, start=1)]
     lines.append(f"validation took {result.seconds:.1f} s")
+    return lines
+
+
+def format_validate_table(result: ValidationResult) -> str:
+    """The comparison table, fixed width, as printed by ``simloop validate``."""
+    sources = _Sources()
+    lines = _table_header(result)
+    for i, n in enumerate(result.tap_turns):
+        lines += _tap_table(result, i, n, sources)
+    if any(c.reference == "mom" and c.rel_diff_handbook is not None for c in result.checks):
+        lines.append("  * relative to MoM (no quasi-static value)")
+    lines += _convergence_table(result) + _power_balance_table(result) + _table_footer(result, sources)
     return "\n".join(lines)
