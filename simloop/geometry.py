@@ -164,6 +164,25 @@ def _turn_corners(style: str, k: int, width: float, height: float, pitch: float,
     ]
 
 
+def _add_leads(add, style: str, start, pitch_m: float, tap_turns, lead_offset_m: float, lead_depths_m) -> None:
+    """The start terminal's link, and per tap its drop, run and collector piece (``add(p, q, kind, tap=)``)."""
+    if style == "stacked":
+        advance, away = np.array([0.0, 1.0, 0.0]), np.array([0.0, 0.0, -1.0])
+    else:
+        advance, away = np.array([0.0, 0.0, 1.0]), np.array([0.0, 1.0, 0.0])
+    base = start - lead_offset_m * advance
+    add(tuple(start), tuple(base), COLLECTOR)
+    previous = base
+    for i, (n, depth) in enumerate(zip(tap_turns, lead_depths_m)):
+        tap_point = start + n * pitch_m * advance
+        drop_end = tap_point + depth * away
+        level = base + depth * away
+        add(tuple(tap_point), tuple(drop_end), DROP, tap=i)
+        add(tuple(drop_end), tuple(level), RUN, tap=i)
+        add(tuple(previous), tuple(level), COLLECTOR, tap=i)
+        previous = level
+
+
 def build_loop(
     width_m: float,
     height_m: float,
@@ -219,23 +238,9 @@ def build_loop(
             add(p, q, WINDING, turn=k)
 
     start = np.array(_turn_corners(style, 0, width_m, height_m, pitch_m, turns)[0])
-    if style == "stacked":
-        advance, away = np.array([0.0, 1.0, 0.0]), np.array([0.0, 0.0, -1.0])
-    else:
-        advance, away = np.array([0.0, 0.0, 1.0]), np.array([0.0, 1.0, 0.0])
-    base = start - lead_offset_m * advance
-    add(tuple(start), tuple(base), COLLECTOR)
-    previous = base
     if lead_depths_m is None:
         lead_depths_m = tuple(lead_offset_m * (1 + i) for i in range(len(tap_turns)))
-    for i, (n, depth) in enumerate(zip(tap_turns, lead_depths_m)):
-        tap_point = start + n * pitch_m * advance
-        drop_end = tap_point + depth * away
-        level = base + depth * away
-        add(tuple(tap_point), tuple(drop_end), DROP, tap=i)
-        add(tuple(drop_end), tuple(level), RUN, tap=i)
-        add(tuple(previous), tuple(level), COLLECTOR, tap=i)
-        previous = level
+    _add_leads(add, style, start, pitch_m, tap_turns, lead_offset_m, lead_depths_m)
 
     return LoopGeometry(
         starts=np.array(starts, dtype=float),
