@@ -1,8 +1,10 @@
-"""Formulas the validation sets the solvers against (simloop.reference): vector area and
-magnetic-moment radiation resistance (Balanis 2016 ch. 5; docs/references.md §3), Rosa's
-round-wire correction (Rosa 1908, Grover 1946; §1), Simpson weights on the sphere (Abramowitz and
-Stegun 1964, eq. 25.4.6), the average gain test (common practice in NEC modelling; §9) and
-Richardson extrapolation (Richardson 1911; §9).
+"""Formulas the validation sets the solvers against (simloop.reference).
+
+Sources: vector area and magnetic-moment radiation resistance (Balanis 2016 ch. 5;
+docs/references.md §3), Rosa's round-wire correction (Rosa 1908, Grover 1946; §1), Simpson weights
+on the sphere (Abramowitz and Stegun 1964, eq. 25.4.6; the solid-angle integrals 4π and 8π/3 are
+exact), the average gain test (common practice in NEC modelling; §9) and Richardson extrapolation
+(Richardson 1911; §9).
 
 Moved here from tests/test_validation.py with the formulas (issue 8).
 """
