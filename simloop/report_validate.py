@@ -14,6 +14,7 @@ from simloop.validation import (
     BELOW_RESOLUTION,
     RICHARDSON_ORDER,
     WINDOW_TOP,
+    Note,
     Reason,
     ValidationResult,
     Verdict,
@@ -41,7 +42,7 @@ _REASONS = {
     "mom-inductance": lambda p: f"tap {p['tap']}: MoM L is {p['deviation']:+.1%} from the quasi-static sum",
     "wire-loss": lambda p: (f"tap {p['tap']}: MoM wire loss is {p['deviation']:+.1%} from the exact "
                             f"skin-effect loss of its path at {p['frequency_hz'] / 1e6:.3f} MHz"),
-    "srf-not-found": lambda p: f"tap {p['tap']}: {p['detail']}",
+    "srf-not-found": lambda p: f"tap {p['tap']}: {note_text(Note(p['note_code'], p['note_params']))}",
     "srf-off": lambda p: (f"tap {p['tap']}: direct MoM self-resonance {p['srf_hz'] / 1e6:.3f} MHz is "
                           f"{p['deviation']:+.1%} from the circuit solver's, which moves the sweep's "
                           f"impedance at the top of the band by about {p['in_band']:.1%}"),
@@ -68,6 +69,48 @@ _REASONS = {
                              f"accepted power) is within ±{p['power_balance'] * 100:.0f} % and no mesh rule "
                              f"warns"),
 }
+
+
+#: Check-row note code → its wording from the parameters (:class:`simloop.validation.Note`).
+_NOTES = {
+    "sweep-error": lambda p: f"sweep error estimate ±{p['error']:.1%}",
+    "sheet-without-round-wire": lambda p: (f"bare current-sheet formula without the round-wire correction: "
+                                           f"{p['inductance_h'] * 1e6:.3f} µH"),
+    "apparent-inductance": lambda p: f"apparent X/ω = {p['inductance_h'] * 1e6:.3f} µH",
+    "real-ground-radiation": lambda p: ("lossless wire over real ground: radiation plus ground loss, which the "
+                                        "free-space formulas do not have"),
+    "below-ground-resolution": lambda p: (f"lossless-wire input resistance "
+                                          f"{'negative' if p['resistance_ohm'] < 0 else 'below %g Ω' % p['resolution_ohm']}"
+                                          f" over real ground: not resolved by the solver (ground-loss increments "
+                                          f"below ~{p['resolution_ohm']} Ω are noise)"),
+    "formula-warning": lambda p: p["message"],
+    "power-ratio": lambda p: f"radiated/accepted power {p['ratio']:.4f}",
+    "path-length": lambda p: f"current path {p['path_m']:.3f} m, of which winding {p['winding_m']:.3f} m",
+    "proximity-factor": lambda p: (f"R_p/R_0 = {p['factor']:.4f} for {p['turns']} turns at c/a = "
+                                   f"{p['spacing_ratio']:.2f}"),
+    "q-includes-ground": lambda p: "MoM Q includes the ground loss; the formulas do not",
+    "srf-solves-missing": lambda p: "direct MoM solves either side of the model's resonance missing or failed",
+    "srf-model": lambda p: f"fitted model: {p['frequency_hz'] / 1e6:.4f} MHz",
+    "srf-not-bracketed": lambda p: (f"no resonance between {p['low_hz'] / 1e6:.3f} and {p['high_hz'] / 1e6:.3f} MHz "
+                                    f"in direct MoM: the model's resonance ({p['frequency_hz'] / 1e6:.3f} MHz) is "
+                                    f"off by more than {p['bracket']:.0%}"),
+    "srf-none": lambda p: "no self-resonance within the model's reach",
+    "medhurst": lambda p: (f"Medhurst C = {p['capacitance_f'] * 1e12:.1f} pF for the whole winding as a solenoid "
+                           f"of equal perimeter (Medhurst 1947 measured solenoids: not meant for flat box loops)"),
+}
+
+
+def note_text(note: Note) -> str:
+    """The words for one check-row note (its code and parameters)."""
+    try:
+        return _NOTES[note.code](note.params)
+    except KeyError:
+        raise ValueError(f"unknown check note code {note.code!r}") from None
+
+
+def check_note(check) -> str:
+    """A check row's notes in words, joined by "; " ("" when it has none)."""
+    return "; ".join(note_text(n) for n in check.notes)
 
 
 def reason_text(reason: Reason) -> str:
@@ -130,7 +173,8 @@ def _check_entry(c) -> dict:
         "rel_diff": {"mom": number_or_none(c.rel_diff_mom), "circuit": number_or_none(c.rel_diff_circuit),
                      "handbook": number_or_none(c.rel_diff_handbook)},
         "flag": c.flag,
-        "note": c.note,
+        "note": check_note(c),
+        "note_codes": [{"code": n.code, "params": n.params} for n in c.notes],
     }
 
 
@@ -312,11 +356,11 @@ def _tap_table(result: ValidationResult, i: int, n: int, sources: _Sources) -> l
             lines.append("")
         previous_f = c.frequency_hz
         lines.append(_check_line(c, sources))
-    for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.note):
-        lines.append(f"  {c.quantity}: {c.note}")
+    for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.notes):
+        lines.append(f"  {c.quantity}: {check_note(c)}")
     flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
     if flagged is not None:
-        lines.append(f"  {flagged.quantity}: {flagged.note}")
+        lines.append(f"  {flagged.quantity}: {check_note(flagged)}")
     return lines
 
 

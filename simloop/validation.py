@@ -151,7 +151,7 @@ class Check:
     rel_diff_mom: float | None
     rel_diff_handbook: float | None
     flag: str | None = None
-    note: str = ""
+    notes: tuple = ()  # of Note, worded by simloop.report_validate.check_note
     circuit: float | None = None
     source_circuit: str | None = None
     rel_diff_circuit: float | None = None
@@ -214,6 +214,19 @@ class AverageGain:
     input_power_w: float
     input_resistance_ohm: float
     accepted: bool
+
+
+@dataclass(frozen=True)
+class Note:
+    """A remark on one check row: a code and the numbers behind it, worded by
+    :func:`simloop.report_validate.note_text` (codes listed there)."""
+
+    code: str
+    params: dict
+
+
+def _note(code: str, **params) -> Note:
+    return Note(code, params)
 
 
 @dataclass(frozen=True)
@@ -289,7 +302,7 @@ def _rel(value, ref):
     return float(value / ref - 1.0)
 
 
-def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=None, note=""):
+def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=None, notes=()):
     mom = None if mom is None or not np.isfinite(mom) else float(mom)
     qs = None if qs is None or not np.isfinite(qs) else float(qs)
     hb = None if hb is None or not np.isfinite(hb) else float(hb)
@@ -303,7 +316,7 @@ def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=No
         reference=ref_name,
         rel_diff_mom=_rel(mom, ref) if ref_name == "quasi_static" else None,
         rel_diff_handbook=_rel(hb, ref),
-        flag=flag, note=note,
+        flag=flag, notes=tuple(notes),
     )
 
 
@@ -471,29 +484,26 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
     l_app = lossy.z[i, i].imag / w if ok_l else None
     rows.append(_check("L", "H", n, f, None if zs_l is None else zs_l.imag / w, tf.l_qs, tf.l_hb,
                        "MoM, series branch (fitted shunt C removed)", _SRC_QS_L, tf.src_hb,
-                       note="" if l_app is None else f"apparent X/ω = {l_app * 1e6:.3f} µH"))
+                       notes=() if l_app is None else [_note("apparent-inductance", inductance_h=l_app)]))
     # Radiation resistance: free space; doubled by a perfect ground; real ground adds its loss
     r_in0 = None if zs_o is None else zs_o.real
     if ground == "real":
-        flag, note = None, ("lossless wire over real ground: radiation plus ground loss, which the "
-                            "free-space formulas do not have")
+        flag, note = None, _note("real-ground-radiation")
         if r_in0 is not None and r_in0 < GROUND_RESOLUTION_OHM:
             flag = BELOW_RESOLUTION
-            note = (f"lossless-wire input resistance {'negative' if r_in0 < 0 else 'below 0.1 Ω'} over real "
-                    f"ground: not resolved by the solver (ground-loss increments below "
-                    f"~{GROUND_RESOLUTION_OHM} Ω are noise)")
+            note = _note("below-ground-resolution", resistance_ohm=float(r_in0), resolution_ohm=GROUND_RESOLUTION_OHM)
             r_in0 = None
         rows.append(Check("R_rad+ground", "ohm", n, f, r_in0, None, None, "MoM, lossless wire, series branch",
-                          None, None, None, None, None, flag=flag, note=note))
+                          None, None, None, None, None, flag=flag, notes=(note,)))
     else:
         tail = " × 2 (image)" if perfect else ""
         rows.append(_check("R_rad", "ohm", n, f, r_in0, fr["rr_qs"], fr["rr_hb"],
                            "MoM, lossless wire, series branch" + (" over perfect ground" if perfect else ""),
-                           _SRC_QS_RR + tail, _SRC_HB_RR + tail, note="; ".join(fr["warn"])))
+                           _SRC_QS_RR + tail, _SRC_HB_RR + tail, notes=[_note("formula-warning", message=w) for w in fr["warn"]]))
         if agt is not None and r_in0 is not None and not perfect:
             rows.append(_check("R_rad far field", "ohm", n, f, agt * r_in0, fr["rr_qs"], fr["rr_hb"],
                                "MoM far field: AGT × lossless input resistance", _SRC_QS_RR, _SRC_HB_RR,
-                               note=f"radiated/accepted power {agt:.4f}"))
+                               notes=[_note("power-ratio", ratio=agt)]))
     # Wire loss: skin effect only (what NEC models), then with the proximity effect
     rho = sweep.resistivity_ohm_m
     if rho is not None:
@@ -503,30 +513,30 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
             "MoM: lossy − lossless series resistance (NEC conductivity load: skin effect only)",
             "exact round-wire skin effect (Ramo et al. 1994 sec. 5.6) × length of the current path",
             "surface resistance √(πfμ0ρ)/(2πa) × N × mean turn perimeter (no leads)",
-            note=f"current path {tf.path_length_m:.3f} m, of which winding {tf.winding_length_m:.3f} m"))
+            notes=[_note("path-length", path_m=tf.path_length_m, winding_m=tf.winding_length_m)]))
         rows.append(_check(
             "R_loss skin+prox", "ohm", n, f, None if r_loss is None else r_loss + fr["prox"],
             fr["qs_skin"] + fr["prox"], fr["hb_prox"],
             "MoM skin loss + proximity term of simloop.losses (as tune uses)",
             "exact skin effect × path length + Smith 1972 proximity factor on the winding",
             "Smith 1972: (N P/(2πa)) R_s (1 + R_p/R_0)",
-            note=f"R_p/R_0 = {tf.proximity_factor:.4f} for {n} turns at c/a = "
-                 f"{sweep.geometry.pitch_m / (2 * sweep.geometry.wire_radius_m):.2f}"))
+            notes=[_note("proximity-factor", factor=tf.proximity_factor, turns=n,
+                         spacing_ratio=sweep.geometry.pitch_m / (2 * sweep.geometry.wire_radius_m))]))
     # Q of the tuned circuit: ωL/R_s of the series branch
-    q_note = "MoM Q includes the ground loss; the formulas do not" if ground == "real" else ""
+    q_note = [_note("q-includes-ground")] if ground == "real" else []
     ok_q = zs_l is not None and zs_l.real > 0
     rows.append(_check("Q skin", "-", n, f, zs_l.imag / zs_l.real if ok_q else None,
                        w * tf.l_qs / (fr["qs_skin"] + fr["rr_qs"]), w * tf.l_hb / (fr["hb_skin"] + fr["rr_hb"]),
                        "MoM series branch, ωL/R_s (skin effect only)",
                        "ωL_qs / (skin loss + radiation), quasi-static",
-                       "ωL_hb / (surface-resistance loss + Balanis R_rad)", note=q_note))
+                       "ωL_hb / (surface-resistance loss + Balanis R_rad)", notes=q_note))
     if rho is not None:
         rows.append(_check("Q skin+prox", "-", n, f, zs_l.imag / (zs_l.real + fr["prox"]) if ok_q else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
                            "MoM series branch + proximity term (used by tune)",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
-                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)", note=q_note))
+                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)", notes=q_note))
     return rows
 
 
@@ -553,24 +563,24 @@ def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[C
 def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
     """Self-resonance by direct MoM either side of the model's prediction, and Medhurst's."""
     f_model = float(sweep.self_resonance_hz[i])
-    srf_mom, note = None, ""
+    srf_mom, notes = None, []
     if np.isfinite(f_model):
         lo_f, hi_f = f_model * (1 - SRF_BRACKET), f_model * (1 + SRF_BRACKET)
         a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < SRF_MERGE_REL), None)
         b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < SRF_MERGE_REL), None)
         if a is None or b is None or isinstance(a, SolverError) or isinstance(b, SolverError):
-            note = "direct MoM solves either side of the model's resonance missing or failed"
+            notes.append(_note("srf-solves-missing"))
         else:
             g = [2 * np.pi * s.frequency_hz * (1 / s.z[i, i]).imag for s in (a, b)]  # ω·Im Y_in ≈ ω²C − 1/L
             w2 = [(2 * np.pi * s.frequency_hz) ** 2 for s in (a, b)]
             if g[0] < 0 < g[1]:
                 srf_mom = float(np.sqrt(w2[0] - g[0] * (w2[1] - w2[0]) / (g[1] - g[0])) / (2 * np.pi))
-                note = f"fitted model: {f_model / 1e6:.4f} MHz"
+                notes.append(_note("srf-model", frequency_hz=f_model))
             else:
-                note = (f"no resonance between {lo_f / 1e6:.3f} and {hi_f / 1e6:.3f} MHz in direct MoM: the "
-                        f"model's resonance ({f_model / 1e6:.3f} MHz) is off by more than {SRF_BRACKET:.0%}")
+                notes.append(_note("srf-not-bracketed", low_hz=lo_f, high_hz=hi_f, frequency_hz=f_model,
+                                   bracket=SRF_BRACKET))
     else:
-        note = "no self-resonance within the model's reach"
+        notes.append(_note("srf-none"))
     hb_srf = None
     if spec.winding.style == "stacked" and spec.winding.turns > 1:
         big_n = spec.winding.turns
@@ -578,11 +588,10 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
         c_med, warn = _quietly(reference.self_capacitance_medhurst1947, big_n * spec.winding.pitch_m, d_eq)
         l_full, _ = _handbook_inductance(spec, big_n)
         hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
-        note += (f"; Medhurst C = {float(c_med) * 1e12:.1f} pF for the whole winding as a solenoid of equal "
-                 f"perimeter (Medhurst 1947 measured solenoids: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
+        notes += [_note("medhurst", capacitance_f=float(c_med))] + [_note("formula-warning", message=w) for w in warn]
     return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
                   "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
-                  "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, note=note)
+                  "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, notes=notes)
 
 
 def _average_gains(ff, sweep: SweepResult, f: float):
@@ -800,11 +809,11 @@ def _all_checks(spec, sweep: SweepResult, p: _PlannedSolves, solved: _Solved, ag
     checks: list[Check] = []
     for i, n in enumerate(sweep.tap_turns):
         tf = _tap_formulas(spec, sweep, i)
-        l0_note = f"sweep error estimate ±{sweep.inductance_error[i]:.1%}"
+        l0_notes = [_note("sweep-error", error=float(sweep.inductance_error[i]))]
         if tf.l_sheet is not None:
-            l0_note += f"; bare current-sheet formula without the round-wire correction: {tf.l_sheet * 1e6:.3f} µH"
+            l0_notes.append(_note("sheet-without-round-wire", inductance_h=tf.l_sheet))
         l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, "fitted MoM model (sweep), L0",
-                        _SRC_QS_L, tf.src_hb, note=l0_note)
+                        _SRC_QS_L, tf.src_hb, notes=l0_notes)
         checks.append(_add_circuit([l0_row], circ_l0[i])[0])
         for f in p.frequencies_hz:
             checks += _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
@@ -949,7 +958,9 @@ def _srf_reasons(sweep: SweepResult, n: int, rows, mom_ok: bool) -> list[Reason]
     if srf is None or not np.isfinite(f_model):
         return []
     if srf.mom is None:
-        return [_reason("caution", "srf-not-found", tap=n, detail=srf.note.split(";")[0])] if mom_ok else []
+        first = srf.notes[0]
+        return [_reason("caution", "srf-not-found", tap=n, note_code=first.code, note_params=first.params)] \
+            if mom_ok else []
     # An SRF misfit δ moves the model's |Z| at the top of the band by about
     # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
     delta = srf.mom / f_model - 1
