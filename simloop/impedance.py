@@ -45,17 +45,21 @@ from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, Rule, build_me
 from simloop.units import FREQUENCY_MATCH_REL, find_frequency, same_frequency
 from simloop.solve import Environment, PortSolution, SolveCache, SolveRequest, solve_many, solve_ports
 
-#: A point is reported reliable when its relative impedance error estimate is below this.
+#: A point is reported reliable when its relative impedance error estimate is below this (this
+#: tool's choice: 5 % in |Z| ≈ ωL moves a channel's tuning capacitance C = 1/(ω²L) by about 5 %).
 RELIABLE_BELOW = 0.05
 #: Fit window top as a fraction of the lowest self-resonance (measured: 0.45–0.6 SRF fits
 #: predicted 0.7–1 MHz within 0.3 %; fits near the SRF were 0.7–2 % off).
 WINDOW_TOP = 0.6
+#: Fit points in the window: the two-term fit plus the ω⁴ check of the fit's form, which needs at
+#: least four (:class:`simloop.lumped.LoopModel`); five is this tool's choice.
 WINDOW_POINTS = 5
 #: Largest turn perimeter, in wavelengths, at which the model is fitted: the fitted radiation term
 #: is the small-loop law R_r ∝ f⁴, which holds for a perimeter below about λ/10 (Balanis, *Antenna
 #: Theory*, 3rd ed., 2005, sec. 5.2); at 0.2 λ the MoM radiation resistance is ~29 % above it.
 SMALL_LOOP_PERIMETER = 0.1
-#: Port matrices less reciprocal than this make every point of the sweep unreliable.
+#: Port matrices less reciprocal than this make every point of the sweep unreliable (this tool's
+#: choice: twice the 3–7 % measured on tapped coils whose inductances were right, see above).
 ASYMMETRY_LIMIT = 0.15
 
 # Measured inductance bias of PyNEC against segment/pitch on 10-turn coils, pitch 3/6/12 mm
@@ -347,7 +351,9 @@ MOM_MAX_SEGMENTS = 6000
 #: dimension: the residual against NEC on the three validation loops (tests/validation/
 #: test_circuit_against_nec.py), de-amplified by 1/|1 − (f/f_srf)²|, stayed below 0.75 (kD)².
 RETARDATION_COEF = 1.0
-#: The self-resonance search runs up to this multiple of the top sweep frequency.
+#: The self-resonance search runs up to this multiple of the top sweep frequency (this tool's
+#: choice: 10-turn MW coils self-resonated at 2.9–3.3 MHz, docs/notes/pynec.md, twice the band top;
+#: 40 × leaves room for small single turns).
 SRF_SEARCH = 40.0
 #: Two segment targets are the same length when they differ by less than this fraction (rounding
 #: of the same product computed twice is ≈1e-16). [-]

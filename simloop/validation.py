@@ -75,30 +75,39 @@ BELOW_RESOLUTION = "below solver resolution"
 #: Accepted range of the power balance (radiated over accepted power of a lossless model): ±5 %,
 #: common practice in method-of-moments modelling (our tolerance, not a published limit).
 AGT_ACCEPT = (0.95, 1.05)
-#: Beyond this range the input resistance is not merely imprecise but wrong.
+#: Beyond this range the input resistance is not merely imprecise but wrong (this tool's choice:
+#: 4–5 times the accepted deviation, and symmetric in dB, ±1 dB).
 AGT_BROKEN = (0.8, 1.25)
-#: Convergence meshes, as multiples of the sweep mesh's target segment length.
+#: Convergence meshes, as multiples of the sweep mesh's target segment length (this tool's choice:
+#: a 2:1 span of segment lengths, the finest still within the segment limits of mesh.py).
 COARSE_FACTOR = 1.5
 FINE_FACTOR = 0.75
 #: Exponent of the pitch-rule error in the winding segment length (docs/notes/pynec.md: Richardson
 #: extrapolation with 1.5 from the 2.5 and 1.67 × pitch pair recovered L within 0.1–0.4 %).
 RICHARDSON_ORDER = 1.5
-#: Observed orders outside this range do not count as a trend.
+#: Observed orders outside this range do not count as a trend (this tool's choice, half to twice
+#: the measured order 1.5).
 ORDER_RANGE = (0.75, 3.0)
-#: Verdict thresholds on |L_MoM / L_quasi-static − 1| and on the convergence spread of L.
+#: Verdict thresholds on |L_MoM / L_quasi-static − 1| and on the convergence spread of L (this
+#: tool's choice, of the size of the measured pitch-rule bias at Δ/pitch = 2.5 and 3.3: about 2 %
+#: and 4 %, docs/notes/pynec.md).
 L_OK, L_CAUTION = 0.02, 0.04
 SPREAD_OK, SPREAD_CAUTION = 0.02, 0.05
-#: Spread of the series resistance over the meshes above which Q is less certain.
+#: Spread of the series resistance over the meshes above which Q is less certain (this tool's
+#: choice, equal to R_LOSS_CAUTION).
 R_SPREAD_CAUTION = 0.05
 #: MoM copper loss against the exact skin-effect formula (NEC type-5 loads were within
 #: 0.1–0.3 % on a single loop, docs/notes/pynec.md); beyond this something else is in the loss.
 R_LOSS_CAUTION = 0.05
-#: Direct-MoM check of the self-resonance: bracket either side of the model's prediction; a
-#: caution when the misfit moves the model's impedance at the top of the band by more than this.
+#: Direct-MoM check of the self-resonance: bracket either side of the model's prediction (±4 %:
+#: wider than the 0.7–2 % misfit measured for fits near the self-resonance, docs/notes/pynec.md);
+#: a caution when the misfit moves the model's impedance at the top of the band by more than 1 %
+#: (this tool's choice, a fifth of RELIABLE_BELOW).
 SRF_BRACKET = 0.04
 SRF_CAUTION = 0.01
 #: Reciprocity defect of the port matrix that earns a caution (the sweep's hard limit is
-#: :data:`simloop.impedance.ASYMMETRY_LIMIT`).
+#: :data:`simloop.impedance.ASYMMETRY_LIMIT`): within the 3–7 % measured on tapped coils whose
+#: inductances were right (simloop.impedance), so a caution, not a failure.
 ASYMMETRY_CAUTION = 0.05
 #: Which loop Q the tune and couple studies use.
 Q_USED_BY_TUNE = "proximity-corrected"
