@@ -27,7 +27,9 @@ from simloop.constants import SPEED_OF_LIGHT_M_S as C0  # speed of light [m/s]
 from simloop.geometry import DROP, WINDING, LoopGeometry
 
 
-#: quality -> (segment length as a multiple of the pitch, segments per turn at least)
+#: quality -> (segment length as a multiple of the pitch, segments per turn at least). The pitch
+#: factors sit at measured inductance biases (docs/notes/pynec.md): 2.5 → about −2 % (draft),
+#: 1.67 → about −1 % (standard), 1.25 below that (fine, extrapolated with exponent 1.5).
 QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
 
 #: Low-frequency floor: segment length in wavelengths below which direct MoM reactance is not
@@ -90,7 +92,7 @@ def estimate_segments(width_m: float, height_m: float, turns: float, pitch_m: fl
     if segment_length_m is not None:
         return length / float(segment_length_m), "segment_length"
     pitch_factor, per_turn = QUALITY[quality]
-    limits = {"turn": perimeter / per_turn, "wavelength": 0.05 * C0 / float(stop_hz)}
+    limits = {"turn": perimeter / per_turn, "wavelength": WAVELENGTH_PASS * C0 / float(stop_hz)}
     if t > 1:
         limits["pitch"] = pitch_factor * float(pitch_m)
     limit = min(limits, key=limits.get)
@@ -187,7 +189,7 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     delta = min(perimeter_m / per_turn, float(geom.lengths_m[kinds == DROP].min()) / per_drop)
     if turns > 1:
         delta = min(delta, pitch_factor * geom.pitch_m)
-    return min(delta, 0.05 * C0 / stop_hz)
+    return min(delta, WAVELENGTH_PASS * C0 / stop_hz)
 
 
 def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -> str:
@@ -201,7 +203,7 @@ def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -
     per_drop = 2.0 if quality == "draft" else 3.0
     options = {f"{per_turn} segments per turn (perimeter / {per_turn})": perimeter / per_turn,
                f"the shallowest lead drop in {per_drop:g} segments": float(geom.lengths_m[kinds == DROP].min()) / per_drop,
-               "0.05 λ at the top frequency": 0.05 * C0 / stop_hz}
+               "0.05 λ at the top frequency": WAVELENGTH_PASS * C0 / stop_hz}
     if turns > 1:
         options[f"{pitch_factor:g} × pitch (neighbouring turns)"] = pitch_factor * geom.pitch_m
     rule = min(options, key=options.get)
