@@ -1317,7 +1317,7 @@ def magnetic_moment_area_m2(starts, ends) -> np.ndarray:
     References
     ----------
     .. [1] J. D. Jackson, *Classical Electrodynamics*, 3rd ed., Wiley, 1999, sec. 5.6
-       (magnetic moment m = ½ ∮ r × I dl).
+       (magnetic moment m = ½ ∮ r × I dl) [section from memory].
     """
     p = np.asarray(starts, dtype=float).reshape(-1, 3)
     q = np.asarray(ends, dtype=float).reshape(-1, 3)
@@ -1339,7 +1339,7 @@ def radiation_resistance_moment(area_vector_m2, frequency_hz) -> float:
     ----------
     .. [1] C. A. Balanis, *Antenna Theory: Analysis and Design*, 4th ed., Wiley, 2016, ch. 5.
     .. [2] J. D. Jackson, *Classical Electrodynamics*, 3rd ed., Wiley, 1999, sec. 9.3
-       (magnetic dipole radiation).
+       (magnetic dipole radiation) [section from memory].
     """
     k = 2 * np.pi * float(frequency_hz) / SPEED_OF_LIGHT
     a2 = float(np.dot(area_vector_m2, area_vector_m2))
@@ -1427,7 +1427,7 @@ def sphere_weights(theta_deg, phi_deg) -> np.ndarray:
     References
     ----------
     .. [1] M. Abramowitz, I. A. Stegun, *Handbook of Mathematical Functions*, NBS, 1964,
-       eq. 25.4.6 (extended Simpson's rule).
+       eq. 25.4.6 (extended Simpson's rule) [equation number from memory].
     """
     th = np.radians(np.asarray(theta_deg, dtype=float))
     ph = np.asarray(phi_deg, dtype=float)
@@ -1457,7 +1457,7 @@ def average_gain(e_theta_v, e_phi_v, theta_deg, phi_deg, input_power_w) -> tuple
     References
     ----------
     .. [1] C. A. Balanis, *Antenna Theory: Analysis and Design*, 4th ed., Wiley, 2016, ch. 2
-       (radiated power from the radiation intensity).
+       (radiated power from the radiation intensity) [chapter from memory].
     """
     w = sphere_weights(theta_deg, phi_deg)
     density = (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2) / (2 * ETA0_OHM)
