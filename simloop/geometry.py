@@ -136,6 +136,17 @@ class LoopGeometry:
         return np.asarray(areas)
 
 
+def turn_sides_m(style: str, width_m: float, height_m: float, pitch_m: float, turns: int):
+    """Centreline sides (width, height) of turns 0 … turns − 1, shape (turns,) each. [m]
+
+    Stacked turns all have the frame's sides; a spiral's turn k is inset by k pitches on every
+    side, so its sides are 2k pitches shorter.
+    """
+    k = np.arange(int(turns))
+    inset = 2 * k * pitch_m if style == "spiral" else np.zeros(k.size)
+    return width_m - inset, height_m - inset
+
+
 def _turn_corners(style: str, k: int, width: float, height: float, pitch: float, turns: int):
     """Corner points P0..P4 of turn k and the start of turn k+1."""
     if style == "stacked":
@@ -151,6 +162,25 @@ def _turn_corners(style: str, k: int, width: float, height: float, pitch: float,
         (0.0, 0.0, -hh), (hw, 0.0, -hh), (hw, 0.0, hh), (-hw, 0.0, hh), (-hw, 0.0, -hh),
         (0.0, 0.0, -hh + pitch),
     ]
+
+
+def _add_leads(add, style: str, start, pitch_m: float, tap_turns, lead_offset_m: float, lead_depths_m) -> None:
+    """The start terminal's link, and per tap its drop, run and collector piece (``add(p, q, kind, tap=)``)."""
+    if style == "stacked":
+        advance, away = np.array([0.0, 1.0, 0.0]), np.array([0.0, 0.0, -1.0])
+    else:
+        advance, away = np.array([0.0, 0.0, 1.0]), np.array([0.0, 1.0, 0.0])
+    base = start - lead_offset_m * advance
+    add(tuple(start), tuple(base), COLLECTOR)
+    previous = base
+    for i, (n, depth) in enumerate(zip(tap_turns, lead_depths_m)):
+        tap_point = start + n * pitch_m * advance
+        drop_end = tap_point + depth * away
+        level = base + depth * away
+        add(tuple(tap_point), tuple(drop_end), DROP, tap=i)
+        add(tuple(drop_end), tuple(level), RUN, tap=i)
+        add(tuple(previous), tuple(level), COLLECTOR, tap=i)
+        previous = level
 
 
 def build_loop(
@@ -208,23 +238,9 @@ def build_loop(
             add(p, q, WINDING, turn=k)
 
     start = np.array(_turn_corners(style, 0, width_m, height_m, pitch_m, turns)[0])
-    if style == "stacked":
-        advance, away = np.array([0.0, 1.0, 0.0]), np.array([0.0, 0.0, -1.0])
-    else:
-        advance, away = np.array([0.0, 0.0, 1.0]), np.array([0.0, 1.0, 0.0])
-    base = start - lead_offset_m * advance
-    add(tuple(start), tuple(base), COLLECTOR)
-    previous = base
     if lead_depths_m is None:
         lead_depths_m = tuple(lead_offset_m * (1 + i) for i in range(len(tap_turns)))
-    for i, (n, depth) in enumerate(zip(tap_turns, lead_depths_m)):
-        tap_point = start + n * pitch_m * advance
-        drop_end = tap_point + depth * away
-        level = base + depth * away
-        add(tuple(tap_point), tuple(drop_end), DROP, tap=i)
-        add(tuple(drop_end), tuple(level), RUN, tap=i)
-        add(tuple(previous), tuple(level), COLLECTOR, tap=i)
-        previous = level
+    _add_leads(add, style, start, pitch_m, tap_turns, lead_offset_m, lead_depths_m)
 
     return LoopGeometry(
         starts=np.array(starts, dtype=float),
@@ -241,17 +257,24 @@ def build_loop(
 
 
 
-def loop_from_spec(spec) -> LoopGeometry:
-    """Build the loop geometry described by a :class:`simloop.spec.Spec`."""
+def loop_from_spec(spec, *, turns: int | None = None, tap_turns: tuple[int, ...] | None = None,
+                   lead_depths_m: tuple[float, ...] | None = None) -> LoopGeometry:
+    """Build the loop geometry described by a :class:`simloop.spec.Spec`.
+
+    ``turns``, ``tap_turns`` and ``lead_depths_m`` replace the spec's (for a loop tapped at one
+    turn count, or one tap's own circuit); frame, wire, pitch, lead offset and style always come
+    from the spec.
+    """
     return build_loop(
         width_m=spec.frame.width_m,
         height_m=spec.frame.height_m,
-        turns=spec.winding.turns,
+        turns=spec.winding.turns if turns is None else turns,
         pitch_m=spec.winding.pitch_m,
         wire_radius_m=spec.wire.radius_m,
-        tap_turns=spec.taps.turns,
+        tap_turns=spec.taps.turns if tap_turns is None else tap_turns,
         lead_offset_m=spec.leads.offset_m,
         style=spec.winding.style,
+        lead_depths_m=lead_depths_m,
     )
 
 

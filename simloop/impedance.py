@@ -42,18 +42,23 @@ from simloop.circuit import CircuitModel, build_circuit
 from simloop.lumped import LoopModel, fit_loop_model
 from simloop.mesh import C0, FLOOR_TRUSTED, Mesh, Rule, build_mesh, mesh_for_spec, mesh_rules
 from simloop.solve import Environment, PortSolution, SolveCache, solve_ports
+from simloop.units import FREQUENCY_MATCH_REL, find_frequency
 
-#: A point is reported reliable when its relative impedance error estimate is below this.
+#: A point is reported reliable when its relative impedance error estimate is below this (this
+#: tool's choice: 5 % in |Z| ≈ ωL moves a channel's tuning capacitance C = 1/(ω²L) by about 5 %).
 RELIABLE_BELOW = 0.05
 #: Fit window top as a fraction of the lowest self-resonance (measured: 0.45–0.6 SRF fits
 #: predicted 0.7–1 MHz within 0.3 %; fits near the SRF were 0.7–2 % off).
 WINDOW_TOP = 0.6
+#: Fit points in the window: the two-term fit plus the ω⁴ check of the fit's form, which needs at
+#: least four (:class:`simloop.lumped.LoopModel`); five is this tool's choice.
 WINDOW_POINTS = 5
 #: Largest turn perimeter, in wavelengths, at which the model is fitted: the fitted radiation term
 #: is the small-loop law R_r ∝ f⁴, which holds for a perimeter below about λ/10 (Balanis, *Antenna
 #: Theory*, 3rd ed., 2005, sec. 5.2); at 0.2 λ the MoM radiation resistance is ~29 % above it.
 SMALL_LOOP_PERIMETER = 0.1
-#: Port matrices less reciprocal than this make every point of the sweep unreliable.
+#: Port matrices less reciprocal than this make every point of the sweep unreliable (this tool's
+#: choice: twice the 3–7 % measured on tapped coils whose inductances were right, see above).
 ASYMMETRY_LIMIT = 0.15
 
 # Measured inductance bias of PyNEC against segment/pitch on 10-turn coils, pitch 3/6/12 mm
@@ -304,8 +309,28 @@ MOM_MAX_SEGMENTS = 6000
 #: dimension: the residual against NEC on the three validation loops (tests/validation/
 #: test_circuit_against_nec.py), de-amplified by 1/|1 − (f/f_srf)²|, stayed below 0.75 (kD)².
 RETARDATION_COEF = 1.0
-#: The self-resonance search runs up to this multiple of the top sweep frequency.
+#: The self-resonance search runs up to this multiple of the top sweep frequency (this tool's
+#: choice: 10-turn MW coils self-resonated at 2.9–3.3 MHz, docs/notes/pynec.md, twice the band top;
+#: 40 × leaves room for small single turns).
 SRF_SEARCH = 40.0
+#: Two segment targets are the same length when they differ by less than this fraction (rounding
+#: of the same product computed twice is ≈1e-16). [-]
+SAME_LENGTH_REL = 1e-9
+#: Without MoM points in the band, the cross-check solves sit this far above the MoM's floor (just
+#: above it, and a quarter above it; this tool's choice, not a measurement). [-]
+CHECK_ABOVE_FLOOR = (1.02, 1.25)
+#: The fit window of the tuning model must span at least this ratio (top/bottom) to separate its
+#: ω² term; otherwise it falls back to FALLBACK_WINDOW × the lowest self-resonance (this tool's
+#: choice, not a measurement). [-]
+MIN_WINDOW_RATIO = 1.3
+FALLBACK_WINDOW = (0.1, 0.5)
+#: A direct MoM solve infers the MoM's self-resonance only within this factor of the circuit's
+#: (farther away the two-resonator ratio is dominated by the L0 difference; this tool's choice). [-]
+SRF_NEAR_FACTOR = 1.6
+#: Mesh bias assumed for a single turn (no pitch rule applies): 0.2 %, a margin above the single
+#: turn's X/ωL deviations measured above the floor (docs/notes/pynec.md: 1.0007 and 0.9996, i.e.
+#: 0.07 % and 0.04 %); the margin is this tool's choice. [-]
+SINGLE_TURN_MESH_BIAS = 2e-3
 
 
 @dataclass(frozen=True)
@@ -357,7 +382,7 @@ def _circuit_mesh(geom: LoopGeometry, mesh: Mesh) -> Mesh:
     turn_length = geom.winding_length_m / (int(geom.turn.max()) + 1)
     target = max(mesh.target_m, turn_length / CIRCUIT_PER_TURN,
                  mesh.target_m * mesh.n_segments / CIRCUIT_MAX_SEGMENTS)
-    if target <= mesh.target_m * (1 + 1e-9):
+    if target <= mesh.target_m * (1 + SAME_LENGTH_REL):
         return mesh
     return build_mesh(geom, target, mesh.quality)
 
@@ -372,8 +397,8 @@ def plan_sources(spec, geom: LoopGeometry, mesh: Mesh, direct: bool = False) -> 
                           f"{MOM_MAX_SEGMENTS} a direct MoM solve is attempted for")
     if direct:
         return SourcePlan(cmesh, floor, tuple(float(f) for f in f_sweep), (), "every point forced")
-    mom = tuple(float(f) for f in f_sweep if f >= floor * (1 - 1e-9))
-    check = () if mom or floor > CHECK_REACH * float(f_sweep.max()) else (1.02 * floor, 1.25 * floor)
+    mom = tuple(float(f) for f in f_sweep if f >= floor * (1 - FREQUENCY_MATCH_REL))
+    check = () if mom or floor > CHECK_REACH * float(f_sweep.max()) else tuple(k * floor for k in CHECK_ABOVE_FLOOR)
     note = "" if mom else f"the band lies below the MoM's floor {floor / 1e6:.3f} MHz"
     if not mom and not check:
         note += f", more than {CHECK_REACH:g} × the top of the band: no cross-check"
@@ -404,9 +429,9 @@ def _lumped_from_circuit(cm: CircuitModel, geom: LoopGeometry, srf: np.ndarray, 
     outer_turn = float(geom.lengths_m[(np.array(geom.kinds) == "winding") & (geom.turn == 0)].sum())
     small = SMALL_LOOP_PERIMETER * C0 / outer_turn  # where the fitted f⁴ radiation law holds
     lo, hi = float(np.min(f_sweep)), min(float(np.max(f_sweep)), WINDOW_TOP * top, small)
-    if hi < 1.3 * lo:
-        hi = min(0.5 * top, small)
-        lo = min(0.1 * top, hi / 1.3)
+    if hi < MIN_WINDOW_RATIO * lo:
+        hi = min(FALLBACK_WINDOW[1] * top, small)
+        lo = min(FALLBACK_WINDOW[0] * top, hi / MIN_WINDOW_RATIO)
     fit_hz = np.geomspace(lo, hi, WINDOW_POINTS)
     circuit = cm if proximity else cm.with_proximity(False)
     y = np.array([np.linalg.inv(circuit.solve(f).z_ohm) for f in fit_hz])
@@ -486,12 +511,12 @@ def _mom_self_resonance(circ: CircuitStage, solved: dict) -> np.ndarray:
     """The MoM's self-resonance per tap, inferred from direct solves near it (NaN: none usable).
 
     With equal L0 on both sides, X_mom/X_circ = (1 − (f/s_c)²)/(1 − (f/s_m)²); solved for s_m at
-    the MoM solve closest to the circuit's resonance s_c (within a factor 1.6).
+    the MoM solve closest to the circuit's resonance s_c (within :data:`SRF_NEAR_FACTOR`).
     """
     srf = circ.self_resonance_hz
     out = np.full(srf.size, np.nan)
     for i, s_c in enumerate(srf):
-        near = [f for f in solved if np.isfinite(s_c) and abs(np.log(f / s_c)) < np.log(1.6)]
+        near = [f for f in solved if np.isfinite(s_c) and abs(np.log(f / s_c)) < np.log(SRF_NEAR_FACTOR)]
         if not near:
             continue
         f = min(near, key=lambda g: abs(np.log(g / s_c)))
@@ -555,7 +580,7 @@ def _point_errors(geom, mesh, env, circ: CircuitStage, f_sweep, d_mom, end_tap, 
     base_c = np.sqrt(ret[:, None] ** 2 + filament_error(geom) ** 2 + circ.rom_error**2 + d_end**2
                      + ground_effect(geom, env)[None, :] ** 2)
     eps_c = np.minimum(base_c * amp, 1.0)
-    mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if geom.turn.max() >= 1 else 2e-3
+    mesh_bias = pitch_bias(mesh.winding_segment_m / geom.pitch_m) if geom.turn.max() >= 1 else SINGLE_TURN_MESH_BIAS
     brk = np.array([breakdown_error(mesh.shortest_m * f / C0) for f in f_sweep])
     junction = np.where(end_tap, 0.0, np.nan_to_num(d_mom, nan=0.0))
     # the measured MoM–circuit difference is charged to both sides: it does not say which is off
@@ -571,7 +596,7 @@ def _assemble(f_sweep, circ: CircuitStage, solved: dict, eps_c, eps_m, direct: b
     source = np.full(n, "circuit", dtype=object)
     eps = eps_c.copy()
     for m, f in enumerate(f_sweep):
-        key = next((g for g in solved if abs(g - f) <= 1e-9 * f), None)
+        key = find_frequency(f, solved)
         if key is None:
             continue
         if direct or eps_m[m].max() < eps_c[m].max():
@@ -627,7 +652,7 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     eps_l = np.sqrt(filament_error(geom) ** 2 + circ.rom_error**2 + off**2)
     # A failed MoM solve leaves its points without the cross-check they were to get: they are
     # never reported as reliable (the run says so and exits non-zero unless told to carry on).
-    lost = np.array([any(abs(g - f) <= 1e-9 * f for g in failures) for f in f_sweep], dtype=bool)
+    lost = np.array([find_frequency(f, failures) is not None for f in f_sweep], dtype=bool)
     eps[lost] = 1.0
     notes = [f"MoM solve failed at {f / 1e6:.3f} MHz: {e}" for f, e in failures.items()]
     if asym > ASYMMETRY_LIMIT:

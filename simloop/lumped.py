@@ -30,6 +30,31 @@ from scipy.linalg import eig
 from simloop import reference
 
 
+#: An eigenvalue ω² of L0⁻¹v = ω²Cv counts as real when its imaginary part is below this fraction of
+#: its magnitude: LAPACK's eig returns real pairs with rounding-level imaginary parts (≈1e-15 of
+#: |λ| for these symmetric matrices), a genuine complex pair is far above it. [-]
+EIGEN_REAL_TOL = 1e-9
+#: A resonance is seen at a port when its residue there exceeds this fraction of the largest one:
+#: an eigenvector with no component at the port has a residue at rounding level. [-]
+RESIDUE_SEEN_TOL = 1e-9
+
+
+def series_branch(y, capacitance_f, frequency_hz) -> np.ndarray:
+    r"""Series branch of port admittance matrices with the shunt capacitance removed. [Ω]
+
+    .. math:: Z_s = (Y - j\omega C)^{-1}
+
+    Parameters
+    ----------
+    y : array_like, shape (..., k, k)
+        Short-circuit admittance matrices. [S]
+    capacitance_f : array_like, shape (k, k)
+        Shunt capacitance matrix of the fitted model. [F]
+    frequency_hz : float or array_like, shape (...)
+        Frequency of each matrix. [Hz]
+    """
+    w = 2 * np.pi * np.asarray(frequency_hz, dtype=float)
+    return np.linalg.inv(np.asarray(y) - 1j * w[..., None, None] * np.asarray(capacitance_f))
 
 
 @dataclass(frozen=True)
@@ -115,14 +140,14 @@ class LoopModel:
         gamma = np.linalg.inv(self.inductance_h)
         lam, vec = eig(gamma, self.capacitance_f)
         with np.errstate(invalid="ignore", divide="ignore"):
-            real = np.isfinite(lam) & (np.abs(lam.imag) <= 1e-9 * np.abs(lam)) & (lam.real > 0)
+            real = np.isfinite(lam) & (np.abs(lam.imag) <= EIGEN_REAL_TOL * np.abs(lam)) & (lam.real > 0)
         if not np.any(real):
             return None
         lam, vec = lam.real[real], vec.real[:, real]
         # residue of [(ω²C − Γ)⁻¹]_ii at ω² = λ_m is v_i² / (vᵀ C v)
         norm = np.einsum("im,ij,jm->m", vec, self.capacitance_f, vec)
         residue = vec[port] ** 2 / norm
-        seen = residue > 1e-9 * np.abs(residue).max()
+        seen = residue > RESIDUE_SEEN_TOL * np.abs(residue).max()
         if not np.any(seen):
             return None
         f = float(np.sqrt(lam[seen].min()) / (2 * np.pi))
@@ -175,7 +200,7 @@ def fit_loop_model(frequency_hz, y, wire_radius_m: float, resistivity_ohm_m: flo
         spread = float(np.max(np.abs(np.diag(l0_alt) - np.diag(l0)) / np.diag(l0)))
 
     # Series resistance with the shunt capacitance removed, fitted to its two frequency laws.
-    zs = np.linalg.inv(y - 1j * w[:, None, None] * cap)
+    zs = series_branch(y, cap, f)
     rs = zs.real.reshape(f.size, -1)
     f_ref = float(f.max())
     columns = [(f / f_ref) ** 4]

@@ -27,13 +27,31 @@ from simloop.constants import SPEED_OF_LIGHT_M_S as C0  # speed of light [m/s]
 from simloop.geometry import DROP, WINDING, LoopGeometry
 
 
-#: quality -> (segment length as a multiple of the pitch, segments per turn at least)
+#: quality -> (segment length as a multiple of the pitch, segments per turn at least). The pitch
+#: factors sit at measured inductance biases (docs/notes/pynec.md): 2.5 → about −2 % (draft),
+#: 1.67 → about −1 % (standard), 1.25 below that (fine, extrapolated with exponent 1.5).
 QUALITY = {"draft": (2.5, 24), "standard": (5.0 / 3.0, 36), "fine": (1.25, 48)}
 
 #: Low-frequency floor: segment length in wavelengths below which direct MoM reactance is not
 #: trusted (measured with PyNEC 2.3.4: L error ≤ 0.1 % at 1e-4 λ, 0.1–1 % at 5e-5 λ).
 FLOOR_TRUSTED = 7e-5
 FLOOR_ABSOLUTE = 5e-5
+
+#: Longest segment at the top frequency, in wavelengths: 0.05 λ in critical regions passes, up to
+#: 0.1 λ (the guide's limit elsewhere) warns (NEC-2 User's Guide, Burke & Poggio 1981, sec. II). [-]
+WAVELENGTH_PASS, WAVELENGTH_WARN = 0.05, 0.1
+#: Shortest segment over wire radius: ≥ 8 keeps the thin-wire kernel within 1 %, below 2 it is
+#: invalid (Burke & Poggio 1981, sec. II). [-]
+KERNEL_PASS, KERNEL_WARN = 8.0, 2.0
+#: Winding segment over pitch: ≤ 2 passes, ≤ 3.4 warns (measured with PyNEC 2.3.4 on 10-turn MW
+#: coils, L bias about −2 % at 2.5 and −4 % at 3.3; docs/notes/pynec.md). [-]
+PITCH_PASS, PITCH_WARN = 2.0, 3.4
+#: Longest over shortest segment above which the mesh is not uniform (a single coarse lead segment
+#: cost 5 % of L in our PyNEC measurements; docs/notes/pynec.md). [-]
+UNIFORM_LIMIT = 2.0
+#: Segments above which a solve warns for its time and memory (:func:`solve_cost`: about 70 s and
+#: 1.2 GB per frequency on one core, measured for this project). [-]
+SIZE_WARN = 6000
 
 
 
@@ -74,7 +92,7 @@ def estimate_segments(width_m: float, height_m: float, turns: float, pitch_m: fl
     if segment_length_m is not None:
         return length / float(segment_length_m), "segment_length"
     pitch_factor, per_turn = QUALITY[quality]
-    limits = {"turn": perimeter / per_turn, "wavelength": 0.05 * C0 / float(stop_hz)}
+    limits = {"turn": perimeter / per_turn, "wavelength": WAVELENGTH_PASS * C0 / float(stop_hz)}
     if t > 1:
         limits["pitch"] = pitch_factor * float(pitch_m)
     limit = min(limits, key=limits.get)
@@ -171,7 +189,7 @@ def target_segment_m(geom: LoopGeometry, quality: str, stop_hz: float, turns: in
     delta = min(perimeter_m / per_turn, float(geom.lengths_m[kinds == DROP].min()) / per_drop)
     if turns > 1:
         delta = min(delta, pitch_factor * geom.pitch_m)
-    return min(delta, 0.05 * C0 / stop_hz)
+    return min(delta, WAVELENGTH_PASS * C0 / stop_hz)
 
 
 def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -> str:
@@ -185,7 +203,7 @@ def segment_rule(geom: LoopGeometry, quality: str, stop_hz: float, turns: int) -
     per_drop = 2.0 if quality == "draft" else 3.0
     options = {f"{per_turn} segments per turn (perimeter / {per_turn})": perimeter / per_turn,
                f"the shallowest lead drop in {per_drop:g} segments": float(geom.lengths_m[kinds == DROP].min()) / per_drop,
-               "0.05 λ at the top frequency": 0.05 * C0 / stop_hz}
+               "0.05 λ at the top frequency": WAVELENGTH_PASS * C0 / stop_hz}
     if turns > 1:
         options[f"{pitch_factor:g} × pitch (neighbouring turns)"] = pitch_factor * geom.pitch_m
     rule = min(options, key=options.get)
@@ -258,6 +276,9 @@ class Rule:
     name: str
     status: str
     detail: str
+    #: The rule's identity: ``"wavelength"``, ``"kernel"``, ``"pitch"``, ``"uniform"``,
+    #: ``"floor"`` or ``"size"`` (``name`` is its sentence, for people).
+    key: str = ""
 
 
 def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, turns: int) -> list[Rule]:
@@ -266,22 +287,23 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
     lam_top = C0 / stop_hz
     ratio = mesh.longest_m / lam_top
     rules.append(Rule("segment <= 0.05 wavelength at the top frequency",
-                      "pass" if ratio <= 0.05 else ("warn" if ratio <= 0.1 else "fail"),
-                      f"longest segment {mesh.longest_m * 1e3:.2f} mm = {ratio:.2e} λ at {stop_hz / 1e6:.3f} MHz"))
+                      "pass" if ratio <= WAVELENGTH_PASS else ("warn" if ratio <= WAVELENGTH_WARN else "fail"),
+                      f"longest segment {mesh.longest_m * 1e3:.2f} mm = {ratio:.2e} λ at {stop_hz / 1e6:.3f} MHz",
+                      "wavelength"))
     da = mesh.shortest_m / mesh.radius_m
     rules.append(Rule("thin-wire kernel: segment/radius >= 8",
-                      "pass" if da >= 8 else ("warn" if da >= 2 else "fail"),
-                      f"shortest segment / radius = {da:.1f} (< 2 invalid, 2–8 over 1 % error)"))
+                      "pass" if da >= KERNEL_PASS else ("warn" if da >= KERNEL_WARN else "fail"),
+                      f"shortest segment / radius = {da:.1f} (< 2 invalid, 2–8 over 1 % error)", "kernel"))
     if turns > 1:
         rp = mesh.winding_segment_m / geom.pitch_m
         rules.append(Rule("segment <= 2 x pitch on the winding",
-                          "pass" if rp <= 2.0 else ("warn" if rp <= 3.4 else "fail"),
+                          "pass" if rp <= PITCH_PASS else ("warn" if rp <= PITCH_WARN else "fail"),
                           f"winding segment / pitch = {rp:.2f} (measured L bias: 2.5 → about -2 %, "
-                          f"3.3 → -4 %, 5 → -9 %)"))
+                          f"3.3 → -4 %, 5 → -9 %)", "pitch"))
     spread = mesh.longest_m / mesh.shortest_m
     rules.append(Rule("uniform segment length (leads included)",
-                      "pass" if spread <= 2.0 else "warn",
-                      f"longest / shortest segment = {spread:.2f}"))
+                      "pass" if spread <= UNIFORM_LIMIT else "warn",
+                      f"longest / shortest segment = {spread:.2f}", "uniform"))
     f_floor = mesh.floor_frequency_hz(FLOOR_TRUSTED)
     if f_floor <= start_hz:
         status, detail = "pass", f"every sweep point is above {f_floor / 1e6:.3f} MHz (Δ ≥ 7e-5 λ)"
@@ -289,12 +311,12 @@ def mesh_rules(mesh: Mesh, geom: LoopGeometry, start_hz: float, stop_hz: float, 
         status = "warn"
         detail = (f"direct MoM reactance is trusted only above {f_floor / 1e6:.3f} MHz (Δ ≥ 7e-5 λ); "
                   f"sweep points below it come from the circuit solver")
-    rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail))
+    rules.append(Rule("low-frequency floor: segment >= 7e-5 wavelength", status, detail, "floor"))
     n = mesh.n_segments
     seconds, memory_b = solve_cost(n)
-    rules.append(Rule("size", "pass" if n <= 6000 else ("warn" if n <= MAX_SEGMENTS else "fail"),
+    rules.append(Rule("size", "pass" if n <= SIZE_WARN else ("warn" if n <= MAX_SEGMENTS else "fail"),
                       f"{n} segments: about {seconds:.1f} s and {memory_b / 1e6:.0f} MB per frequency "
-                      f"(PyNEC 2.3.4, one core); at most {MAX_SEGMENTS} are solved"))
+                      f"(PyNEC 2.3.4, one core); at most {MAX_SEGMENTS} are solved", "size"))
     return rules
 
 

@@ -361,7 +361,7 @@ class PortFarField:
         residual : ndarray, shape (k,)
             Relative rms of the part of the field beyond the two dipoles. [-]
         """
-        from simloop.validation import sphere_weights
+        from simloop.reference import sphere_weights
 
         w_sr = sphere_weights(self.theta_deg, self.phi_deg)  # (nφ, nθ)
         az, el = np.meshgrid(self.phi_deg, 90.0 - self.theta_deg, indexing="ij")
@@ -421,7 +421,7 @@ class DipoleField:
 
 def directivity(e_theta_v, e_phi_v, theta_deg, phi_deg) -> float:
     r"""Directivity from a full-sphere pattern: 4π max|E|² / ∮|E|² dΩ. [-]"""
-    from simloop.validation import sphere_weights
+    from simloop.reference import sphere_weights
 
     w = sphere_weights(theta_deg, phi_deg)
     u = np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2
@@ -1096,7 +1096,7 @@ def radiated_power_w(e_theta_v, e_phi_v, theta_deg, phi_deg) -> float:
     (θ 0–90°, over a ground), P = ∮ (|rE_θ|² + |rE_φ|²)/(2η0) dΩ. [W]
 
     Composite Simpson in θ with the sin θ of the solid angle, uniform in φ (the sphere case is
-    :func:`simloop.validation.sphere_weights`).
+    :func:`simloop.reference.sphere_weights`).
     """
     th = np.radians(np.asarray(theta_deg, dtype=float))
     n = th.size - 1

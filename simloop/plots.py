@@ -1,13 +1,17 @@
-"""Figures, written straight to files; no figure is ever shown (the backend is matplotlib's
-choice: without a display it is the headless Agg; this module does not set it at import)."""
+"""Figures, written straight to files; no figure is ever shown.
+
+Figures are :class:`matplotlib.figure.Figure` objects saved through their own canvas, as in
+:mod:`simloop.report_plots`: no pyplot state, no backend selected, so importing or calling this
+module never changes a notebook user's backend."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
 import matplotlib
-import matplotlib.pyplot as plt
 import matplotlib.ticker
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
 import numpy as np
 
 from simloop.impedance import RELIABLE_BELOW, SweepResult
@@ -20,8 +24,9 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
     direct MoM solves, squares values of the circuit solver (or the fitted model).
     """
     f_mhz = result.frequencies_hz / 1e6
-    fig, (ax_x, ax_r) = plt.subplots(2, 1, figsize=(8, 7.5), sharex=True, constrained_layout=True)
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    fig = Figure(figsize=(8, 7.5), constrained_layout=True)
+    ax_x, ax_r = fig.subplots(2, 1, sharex=True)
+    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
     mom = result.source == "mom"
     for i, n in enumerate(result.tap_turns):
         c = colours[i % len(colours)]
@@ -54,12 +59,11 @@ def plot_impedance(result: SweepResult, path: Path) -> Path:
     ax_x.set_title(f"{result.name}: tap impedance, other taps open "
                    f"({result.geometry.wire_length_m:.2f} m of wire)")
     fig.savefig(path, dpi=110)
-    plt.close(fig)
     return path
 
 
 def _tap_colour(i: int) -> str:
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    colours = matplotlib.rcParams["axes.prop_cycle"].by_key()["color"]
     return colours[i % len(colours)]
 
 
@@ -97,13 +101,13 @@ def _tuning_capacitance_panel(ax, r, handles):
         _channel_markers(ax, f_k[sel], r.capacitance_f[sel] * 1e12, r.reliable[sel], col)
         used = f_k[sel]
         span = f"uses {used[0]:.0f}–{used[-1]:.0f} kHz" if used.size else "not used"
-        handles.append(plt.Line2D([], [], color=col, marker="o", ms=4,
+        handles.append(Line2D([], [], color=col, marker="o", ms=4,
                                   label=f"tap {n}: reaches {r.f_low_hz[i] / 1e3:.0f}–{r.f_high_hz[i] / 1e3:.0f} kHz, {span}"))
     for w in r.chart.switches:
         ax.axvline(0.5 * (w.last_hz + w.first_hz) / 1e3, color="k", lw=0.8, ls="-.", alpha=0.6)
     if r.chart.switches:
-        handles.append(plt.Line2D([], [], color="k", lw=0.8, ls="-.", label="tap switch point"))
-    handles.append(plt.Line2D([], [], color="grey", marker="o", mfc="none", ls="none",
+        handles.append(Line2D([], [], color="k", lw=0.8, ls="-.", label="tap switch point"))
+    handles.append(Line2D([], [], color="grey", marker="o", mfc="none", ls="none",
                               label="channel, model not trusted (hollow)"))
     pos = r.curve_capacitance_f[r.curve_capacitance_f > 0]
     cmin = float(np.nanmin(pos)) * 1e12 if pos.size else c_lo
@@ -200,7 +204,7 @@ def plot_tuning(result, path: Path) -> Path:
     r = result
     plates = r.tuner.has_position
     ratios = [3.0, 1.5, 1.5, 1.5] if plates else [3.0, 1.5, 1.5]
-    fig = plt.figure(figsize=(13, 11 if plates else 9.5), constrained_layout=True)
+    fig = Figure(figsize=(13, 11 if plates else 9.5), constrained_layout=True)
     grid = fig.add_gridspec(len(ratios), 2, width_ratios=[3.3, 1.0], height_ratios=ratios)
     ax_c = fig.add_subplot(grid[0, 0])
     axes = [ax_c] + [fig.add_subplot(grid[k, 0], sharex=ax_c) for k in range(1, len(ratios))]
@@ -228,7 +232,6 @@ def plot_tuning(result, path: Path) -> Path:
     ax_t.text(0.0, 1.0, "\n".join(lines), family="monospace", fontsize=7.5, va="top", ha="left",
               transform=ax_t.transAxes)
     fig.savefig(path, dpi=110)
-    plt.close(fig)
     return path
 
 
@@ -246,7 +249,7 @@ def plot_slide_scale(result, path: Path) -> Path:
     taps = [i for i in range(len(r.tap_turns)) if np.any(r.channel_tap_index == i)]
     height_in = 1.3 + 0.7 * max(len(taps), 1)
     width_in = travel_in + 2 * margin_in
-    fig = plt.figure(figsize=(width_in, height_in))
+    fig = Figure(figsize=(width_in, height_in))
     ax = fig.add_axes([margin_in / width_in, 0.0, travel_in / width_in, 1.0])
     ax.set_xlim(0, t.max_overlap_m * 1e3)
     ax.set_ylim(0, height_in)
@@ -285,5 +288,4 @@ def plot_slide_scale(result, path: Path) -> Path:
             f"overlapping; channel marks in kHz, one strip per tap.", fontsize=5, ha="left", va="top")
     ax.text(0, height_in - 0.32, t.describe(r.imperial), fontsize=4.5, ha="left", va="top")
     fig.savefig(path, dpi=300)
-    plt.close(fig)
     return path

@@ -27,6 +27,11 @@ Q and bandwidth
     :func:`q_factor`, :func:`bandwidth_3db`, :func:`q_loaded`.
 Self-capacitance
     :func:`self_capacitance_medhurst1947`.
+Formulas the validation sets the solvers against
+    :func:`magnetic_moment_area_m2`, :func:`radiation_resistance_moment`,
+    :func:`inductance_square_spiral_current_sheet` (Mohan 1999), :func:`rosa_b`,
+    :func:`rosa_round_wire_correction` (Rosa 1908), :func:`sphere_weights`, :func:`average_gain`,
+    :func:`richardson_extrapolation`.
 
 Conventions: every length in metres, every result in SI (H, T, Ω, F, Hz). Formula functions
 accept scalars or arrays and broadcast them, returning numpy arrays (0-d for scalar input);
@@ -38,12 +43,14 @@ outside a formula's range raise ``ValueError`` (impossible) or issue
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 from scipy import special
+from scipy.optimize import brentq
 
-from simloop.constants import MU0_H_M as MU0, SPEED_OF_LIGHT_M_S as SPEED_OF_LIGHT  # docs/references.md §13
+from simloop.constants import ETA0_OHM, MU0_H_M as MU0, SPEED_OF_LIGHT_M_S as SPEED_OF_LIGHT  # docs/references.md §13
 from simloop.errors import ValidityWarning
 
 __all__ = [
@@ -1294,3 +1301,243 @@ def self_capacitance_medhurst1947(length_m, diameter_m):
     h = np.where(lo, _MEDHURST_H[0] + slope_lo * (x - xs[0]), h)
     h = np.where(hi, _MEDHURST_H[-1] + slope_hi * (x - xs[-1]), h)
     return h * (100 * d) * 1e-12
+
+
+# ------------------------------------------------------------------------------------------------
+# Formulas the validation sets the solvers against
+# ------------------------------------------------------------------------------------------------
+
+
+def magnetic_moment_area_m2(starts, ends) -> np.ndarray:
+    r"""Vector area of a closed circuit of straight pieces, m/I = ½ ∮ r × dl. [m²]
+
+    For a straight piece from p to q, ∫ r × dr = p × q, so the vector area is ½ Σ p_k × q_k,
+    independent of the origin when the circuit is closed.
+
+    References
+    ----------
+    .. [1] J. D. Jackson, *Classical Electrodynamics*, 3rd ed., Wiley, 1999, sec. 5.6
+       (magnetic moment m = ½ ∮ r × I dl) [section from memory].
+    """
+    p = np.asarray(starts, dtype=float).reshape(-1, 3)
+    q = np.asarray(ends, dtype=float).reshape(-1, 3)
+    return 0.5 * np.cross(p, q).sum(axis=0)
+
+
+def radiation_resistance_moment(area_vector_m2, frequency_hz) -> float:
+    r"""Radiation resistance of an electrically small closed circuit from its vector area. [Ω]
+
+    .. math:: R_r = \frac{\eta_0 k^4}{6\pi}\,|\mathbf{A}|^2 \approx 320\pi^4\frac{|\mathbf{A}|^2}{\lambda^4}
+
+    The magnetic-dipole term of any small current loop; for N equal plane turns |A| = N·A and it
+    is Balanis' small-loop formula (C. A. Balanis, *Antenna Theory*, 4th ed., 2016, ch. 5), whose
+    constant 320π⁴ takes η0 = 120π; with η0 = μ0·c, as here and in NEC, it is 0.07 % lower.
+    Using the vector area of the actual winding path takes in the unequal turns of a spiral and
+    the lead loop.
+
+    References
+    ----------
+    .. [1] C. A. Balanis, *Antenna Theory: Analysis and Design*, 4th ed., Wiley, 2016, ch. 5.
+    .. [2] J. D. Jackson, *Classical Electrodynamics*, 3rd ed., Wiley, 1999, sec. 9.3
+       (magnetic dipole radiation) [section from memory].
+    """
+    k = 2 * np.pi * float(frequency_hz) / SPEED_OF_LIGHT
+    a2 = float(np.dot(area_vector_m2, area_vector_m2))
+    return ETA0_OHM * k**4 * a2 / (6 * np.pi)
+
+
+def inductance_square_spiral_current_sheet(d_out_m, d_in_m, turns) -> float:
+    r"""Current-sheet inductance of a flat square spiral (Mohan et al. 1999). [H]
+
+    .. math:: L = \frac{\mu_0 n^2 d_{avg} c_1}{2}\left[\ln\frac{c_2}{\rho} + c_3\rho
+              + c_4\rho^2\right],\quad d_{avg} = \frac{d_{out} + d_{in}}{2},\quad
+              \rho = \frac{d_{out} - d_{in}}{d_{out} + d_{in}}
+
+    with c1 = 1.27, c2 = 2.07, c3 = 0.18, c4 = 0.13 for a square spiral; d_out and d_in are the
+    outer and inner side lengths of the winding (conductor edges).
+
+    References
+    ----------
+    .. [1] S. S. Mohan, M. del Mar Hershenson, S. P. Boyd, T. H. Lee, "Simple accurate
+       expressions for planar spiral inductances", IEEE J. Solid-State Circuits 34(10), 1999,
+       pp. 1419–1424 (current-sheet expression, table of c1–c4). Coefficients from memory
+       [mem]: confirm against the paper before relying on them.
+    """
+    d_out, d_in, n = float(d_out_m), float(d_in_m), float(turns)
+    d_avg = 0.5 * (d_out + d_in)
+    rho = (d_out - d_in) / (d_out + d_in)
+    c1, c2, c3, c4 = 1.27, 2.07, 0.18, 0.13
+    return MU0 * n**2 * d_avg * c1 / 2 * (np.log(c2 / rho) + c3 * rho + c4 * rho**2)
+
+
+def rosa_b(turns: int) -> float:
+    r"""Rosa's correction B for the mutual inductances of N round-wire turns against a sheet. [-]
+
+    .. math:: B = -\frac{2}{N}\sum_{k=1}^{N-1}(N-k)\left[F(k) - \ln k\right],\quad
+              F(k) = \tfrac12\left[(k+1)^2\ln(k+1) + (k-1)^2\ln|k-1| - 2k^2\ln k\right]
+              - \tfrac32
+
+    F(k) is the mean of ln(distance) between two strips of unit width whose centres are k apart;
+    B is its difference from the filaments' ln k, summed over the pairs of turns. The sum
+    reproduces Rosa's table (B = 0.1137, 0.1663, 0.1973 for N = 2, 3, 4; 0.2664 for N = 10;
+    0.3365 as N → ∞) [mem for the table; the sum is derived here].
+
+    References
+    ----------
+    .. [1] E. B. Rosa, "The self and mutual inductances of linear conductors", Bull. Bureau of
+       Standards 4(2), 1908 (correction B and its table).
+    .. [2] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946.
+    """
+    n = int(turns)
+
+    def f(k):
+        km1 = (k - 1) ** 2 * np.log(abs(k - 1)) if k != 1 else 0.0
+        return 0.5 * ((k + 1) ** 2 * np.log(k + 1) + km1 - 2 * k**2 * np.log(k)) - 1.5
+
+    return float(-(2.0 / n) * sum((n - k) * (f(k) - np.log(k)) for k in range(1, n)))
+
+
+def rosa_round_wire_correction(turn_length_m, turns, pitch_m, wire_diameter_m) -> float:
+    r"""Round-wire correction of a current-sheet inductance (Rosa 1908; Grover 1946). [H]
+
+    .. math:: L = L_{sheet} - \frac{\mu_0}{2\pi}\,\ell N (A + B),\qquad
+              A = \tfrac54 - \ln\frac{2p}{d}
+
+    ℓ is the length of one turn, p the pitch, d the wire diameter, B from :func:`rosa_b`. A is
+    Rosa's value for a uniform (DC) current; with the current on the surface it is 0.25 larger.
+    For spaced windings (p ≫ d) A is negative and the correction adds inductance: a current sheet
+    underestimates thin wires.
+
+    References
+    ----------
+    .. [1] E. B. Rosa, "The self and mutual inductances of linear conductors", Bull. Bureau of
+       Standards 4(2), 1908 (corrections A and B).
+    .. [2] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946.
+    """
+    a = 1.25 - np.log(2 * float(pitch_m) / float(wire_diameter_m))
+    return float(-MU0 / (2 * np.pi) * float(turn_length_m) * int(turns) * (a + rosa_b(turns)))
+
+
+def sphere_weights(theta_deg, phi_deg) -> np.ndarray:
+    r"""Quadrature weights on a θ–φ grid for ∮ F dΩ = Σ w F, shape (nφ, nθ). [sr]
+
+    Composite Simpson in θ over [0°, 180°] (an even number of intervals) with the sin θ factor of
+    the solid angle, uniform (periodic) weights in φ over [0°, 360°).
+
+    References
+    ----------
+    .. [1] M. Abramowitz, I. A. Stegun, *Handbook of Mathematical Functions*, NBS, 1964,
+       eq. 25.4.6 (extended Simpson's rule) [equation number from memory].
+    """
+    th = np.radians(np.asarray(theta_deg, dtype=float))
+    ph = np.asarray(phi_deg, dtype=float)
+    n = th.size - 1
+    if n < 2 or n % 2:
+        raise ValueError(f"θ needs an even number of intervals for Simpson's rule, got {n}")
+    h = th[1] - th[0]
+    if not np.allclose(np.diff(th), h) or abs(th[0]) > 1e-9 or abs(th[-1] - np.pi) > 1e-9:
+        raise ValueError("θ must run uniformly from 0° to 180°")
+    dph = 360.0 / ph.size
+    if not np.allclose(ph, ph[0] + dph * np.arange(ph.size)):
+        raise ValueError("φ must be uniform over [0°, 360°)")
+    simpson = np.ones(th.size)
+    simpson[1:-1:2], simpson[2:-1:2] = 4.0, 2.0
+    w_theta = simpson * h / 3 * np.sin(th)
+    return np.radians(dph) * np.broadcast_to(w_theta, (ph.size, th.size))
+
+
+def average_gain(e_theta_v, e_phi_v, theta_deg, phi_deg, input_power_w) -> tuple[float, float]:
+    r"""Average gain of a pattern: radiated power over the sphere / input power. [-]
+
+    .. math:: P_{rad} = \oint \frac{|rE_\theta|^2 + |rE_\phi|^2}{2\eta_0}\,d\Omega,\qquad
+              \mathrm{AGT} = P_{rad}/P_{in}
+
+    Returns (AGT, P_rad [W]). ``e_theta_v``, ``e_phi_v``: r·E, shape (nφ, nθ), peak values. [V]
+
+    References
+    ----------
+    .. [1] C. A. Balanis, *Antenna Theory: Analysis and Design*, 4th ed., Wiley, 2016, ch. 2
+       (radiated power from the radiation intensity) [chapter from memory].
+    """
+    w = sphere_weights(theta_deg, phi_deg)
+    density = (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2) / (2 * ETA0_OHM)
+    p_rad = float(np.sum(w * density))
+    return p_rad / float(input_power_w), p_rad
+
+
+@dataclass(frozen=True)
+class RichardsonResult:
+    """Outcome of :func:`richardson_extrapolation`.
+
+    ``code`` names the outcome (``"agree"``, ``"not-monotone"``, ``"faster-than-power-law"``,
+    ``"no-shrink"``, ``"order-outside"``, ``"extrapolated"``); ``params`` holds the numbers a
+    report words it with: ``coarse_step`` and ``fine_step`` (relative changes coarse → middle and
+    middle → fine), ``order``, ``observed_order``, ``order_range``, ``agree_within``.
+    """
+
+    estimate: float | None
+    observed_order: float | None
+    code: str
+    params: dict
+
+
+#: Relative change between the three values below which they count as equal (0.01 %: below the
+#: 0.1–0.4 % extrapolation error measured for the pitch rule, docs/notes/pynec.md). [-]
+RICHARDSON_AGREE = 1e-4
+#: Bracket of the observed-order search (a root outside it is not a power law worth the name). [-]
+RICHARDSON_ORDER_BRACKET = (0.05, 8.0)
+
+
+def richardson_extrapolation(step, values, order: float, order_range=(0.75, 3.0)) -> RichardsonResult:
+    r"""Extrapolate values(Δ) = v* + cΔ^p to Δ → 0 from the two finest of three steps.
+
+    Parameters
+    ----------
+    step : array_like, shape (3,)
+        Step sizes (segment lengths), coarse to fine. [m]
+    values : array_like, shape (3,)
+    order : float
+        p used for the extrapolation. [-]
+    order_range : (float, float)
+        Observed orders outside this range do not count as a trend. [-]
+
+    Returns
+    -------
+    RichardsonResult
+        The estimate only when the three values are monotone in Δ and the order they imply lies in
+        ``order_range`` (or when they agree within :data:`RICHARDSON_AGREE`); ``code`` says why
+        not otherwise.
+
+    References
+    ----------
+    .. [1] L. F. Richardson, "The approximate arithmetical solution by finite differences of
+       physical problems", Phil. Trans. R. Soc. A 210, 1911, pp. 307–357.
+    .. [2] P. J. Roache, *Verification and Validation in Computational Science and Engineering*,
+       Hermosa, 1998 (observed order from three grids).
+    """
+    d = np.asarray(step, dtype=float)
+    v = np.asarray(values, dtype=float)
+    d1, d2 = v[0] - v[1], v[1] - v[2]
+    scale = abs(v[2])
+    steps = {"coarse_step": float(-d1 / scale), "fine_step": float(-d2 / scale)}
+    if abs(d1) < RICHARDSON_AGREE * scale and abs(d2) < RICHARDSON_AGREE * scale:
+        return RichardsonResult(float(v[2]), None, "agree", {"agree_within": RICHARDSON_AGREE})
+    if d1 * d2 <= 0:
+        return RichardsonResult(None, None, "not-monotone", steps)
+    ratio = d1 / d2
+
+    def mismatch(p):
+        return (d[0] ** p - d[1] ** p) / (d[1] ** p - d[2] ** p) - ratio
+
+    lo, hi = RICHARDSON_ORDER_BRACKET
+    if mismatch(hi) < 0:
+        return RichardsonResult(None, None, "faster-than-power-law", steps)
+    if mismatch(lo) > 0:
+        return RichardsonResult(None, None, "no-shrink", steps)
+    p_obs = float(brentq(mismatch, lo, hi))
+    if not order_range[0] <= p_obs <= order_range[1]:
+        return RichardsonResult(None, p_obs, "order-outside",
+                                {"observed_order": p_obs, "order_range": tuple(order_range)})
+    c = (v[1] - v[2]) / (d[1] ** order - d[2] ** order)
+    return RichardsonResult(float(v[2] - c * d[2] ** order), p_obs, "extrapolated",
+                            {"order": order, "observed_order": p_obs})

@@ -21,28 +21,36 @@ from simloop.errors import SpecError
 from simloop.impedance import RELIABLE_BELOW, SweepResult
 
 
-def _pairs(z) -> list:
-    """Complex array → nested [re, im] pairs (DESIGN §2)."""
+def complex_pairs(z) -> list:
+    """Complex array → nested [re, im] pairs (JSON has no complex numbers)."""
     z = np.asarray(z)
     if z.ndim == 0:
         return [float(z.real), float(z.imag)]
-    return [_pairs(v) for v in z]
+    return [complex_pairs(v) for v in z]
 
 
-def _num(x) -> float | None:
+def number_or_none(x) -> float | None:
+    """A finite number as float; None, NaN and ±inf as None (JSON null: a quantity not determined)."""
+    if x is None:
+        return None
     x = float(x)
-    return None if not math.isfinite(x) else x
+    return x if math.isfinite(x) else None
 
 
-def _finite(value):
+def finite_json(value):
     """Non-finite floats become null (JSON has no NaN); everything else is kept."""
     if isinstance(value, dict):
-        return {k: _finite(v) for k, v in value.items()}
+        return {k: finite_json(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_finite(v) for v in value]
+        return [finite_json(v) for v in value]
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
+
+
+# The former private names, still imported by report_couple, report_pattern and report_tune
+# (their owners move to the public names).
+_pairs, _num, _finite = complex_pairs, number_or_none, finite_json
 
 
 def write_json(path: Path, data: dict) -> Path:
@@ -52,7 +60,7 @@ def write_json(path: Path, data: dict) -> Path:
     anywhere near cannot redirect the write. A value that is not a finite number is written as
     null: a quantity the tool could not determine is reported as absent, never as a number.
     """
-    return _write_atomic(Path(path), (json.dumps(_finite(data), indent=1, allow_nan=False) + "\n").encode())
+    return _write_atomic(Path(path), (json.dumps(finite_json(data), indent=1, allow_nan=False) + "\n").encode())
 
 
 def _umask() -> int:
@@ -221,7 +229,7 @@ def mesh_summary(result: SweepResult) -> dict:
         "winding_segment_m": mesh.winding_segment_m,
         "floor_trusted_hz": mesh.floor_frequency_hz(),
         "floor_absolute_hz": mesh.floor_frequency_hz(5e-5),
-        "rules": [{"rule": r.name, "status": r.status, "detail": r.detail} for r in result.rules],
+        "rules": [{"rule": r.name, "key": r.key, "status": r.status, "detail": r.detail} for r in result.rules],
     }
 
 
@@ -232,19 +240,19 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
         zi = result.tap_impedance(i)
         taps[str(n)] = {
             "turns": n,
-            "impedance_ohm": _pairs(zi),
+            "impedance_ohm": complex_pairs(zi),
             "inductance_h": float(result.inductance_h[i]),
             "inductance_error": float(result.inductance_error[i]),
             "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
             "junction_correction": float(result.junction_correction[i]),
             "uncorrected_inductance_h": float(result.uncorrected_inductance_h[i]),
-            "self_resonance_hz": _num(result.self_resonance_hz[i]),
-            "self_capacitance_f": _num(result.self_capacitance_f[i]),
+            "self_resonance_hz": number_or_none(result.self_resonance_hz[i]),
+            "self_capacitance_f": number_or_none(result.self_capacitance_f[i]),
             "reliable": [bool(v) for v in result.reliable[:, i]],
             "source": [str(s) for s in result.source],
             "error_estimate": [float(e) for e in result.error_estimate[:, i]],
-            "mom_difference": _num(result.mom_difference[i]) if result.mom_difference.size else None,
-            "mom_self_resonance_hz": (_num(result.mom_self_resonance_hz[i])
+            "mom_difference": number_or_none(result.mom_difference[i]) if result.mom_difference.size else None,
+            "mom_self_resonance_hz": (number_or_none(result.mom_self_resonance_hz[i])
                                       if result.mom_self_resonance_hz.size else None),
         }
     m = result.model
@@ -256,7 +264,7 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
         "reference_impedance_ohm": z0,
         "reliable_below": RELIABLE_BELOW,
         "taps": taps,
-        "impedance_matrix_ohm": _pairs(result.z_ohm),
+        "impedance_matrix_ohm": complex_pairs(result.z_ohm),
         "model": {
             "form": "Y = (R_s + jωL0)^-1 + jωC, fitted to ω·Im Y = -L0^-1 + ω²C of circuit solves",
             "fit_frequencies_hz": [float(f) for f in m.fit_hz],
@@ -270,7 +278,7 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
             "solver": "PEEC (quasi-static partial element equivalent circuit, Ruehli 1974)",
             "segments": result.circuit_segments,
             "seconds": result.circuit_seconds,
-            "reduced_model_error": _num(result.circuit_rom_error),
+            "reduced_model_error": number_or_none(result.circuit_rom_error),
             "coverage": list(result.coverage),
         },
         "mesh": mesh_summary(result),

@@ -556,7 +556,8 @@ def section_validation(result) -> str | None:
     st = esc(v.verdict.status)
     parts = [f'<p>Verdict: <span class="badge {st}">{st}</span></p>']
     if v.verdict.reasons:
-        parts.append("<ul>" + "".join(f"<li>{esc(x)}</li>" for x in v.verdict.reasons) + "</ul>")
+        from simloop.report_validate import verdict_texts  # reasons are codes; worded in the report layer
+        parts.append("<ul>" + "".join(f"<li>{esc(x)}</li>" for x in verdict_texts(v.verdict)) + "</ul>")
     parts.append("<p>MoM: the method-of-moments model of the sweep. QS: quasi-static model of the same wire "
                  "path without MoM. HB: the handbook formula. Δ: difference from QS (from MoM where QS has "
                  "none). Series values have the fitted self-capacitance removed.</p>")
@@ -763,7 +764,9 @@ def summary_validation(result) -> dict | None:
     v = result.validation
     if v is None:
         return None
-    return {"verdict": {"status": v.verdict.status, "reasons": list(v.verdict.reasons)}}
+    from simloop.report_validate import verdict_dict  # reasons in words, and as codes
+
+    return {"verdict": verdict_dict(v.verdict)}
 
 
 def summary_couple(result) -> dict | None:

@@ -314,15 +314,15 @@ class Spec:
 # --- Stage 1: structure (pydantic models of what the user wrote) ---------------------------------
 
 @dataclass(frozen=True)
-class _W:
+class _Written:
     """A parsed value and the text the user wrote for it (for stage-2 messages)."""
 
     value: float
     text: str
 
 
-def _default(value: float, kind: str) -> _W:
-    return _W(value, f"the default {format_quantity(value, kind)}")
+def _default(value: float, kind: str) -> _Written:
+    return _Written(value, f"the default {format_quantity(value, kind)}")
 
 
 def _problem(message: str) -> PydanticCustomError:
@@ -331,9 +331,9 @@ def _problem(message: str) -> PydanticCustomError:
 
 
 def _quantity(kind: str, sign: str = "positive") -> PlainValidator:
-    def check(value: Any) -> _W:
+    def check(value: Any) -> _Written:
         try:
-            return _W(parse_quantity(value, kind, sign=sign), as_written(value))
+            return _Written(parse_quantity(value, kind, sign=sign), as_written(value))
         except SpecError as err:
             raise _problem(err.problems[0][1]) from None
 
@@ -343,7 +343,7 @@ def _quantity(kind: str, sign: str = "positive") -> PlainValidator:
 def _number(sign: str = "positive") -> PlainValidator:
     """A dimensionless number (permeability, q, ...)."""
 
-    def check(value: Any) -> _W:
+    def check(value: Any) -> _Written:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise _problem(f"must be a number, got {as_written(value)}")
         try:
@@ -354,7 +354,7 @@ def _number(sign: str = "positive") -> PlainValidator:
             raise _problem(f"must be a finite number, got {as_written(value)}")
         if sign == "positive" and not number > 0:
             raise _problem(f"must be > 0, got {as_written(value)}")
-        return _W(number, as_written(value))
+        return _Written(number, as_written(value))
 
     return PlainValidator(check)
 
@@ -397,17 +397,17 @@ def _listify(value: Any) -> Any:
     return value if isinstance(value, list) else [value]
 
 
-_Length = Annotated[_W, _quantity("length")]
-_Coordinate = Annotated[_W, _quantity("length", sign="any")]
-_Frequency = Annotated[_W, _quantity("frequency")]
-_Capacitance = Annotated[_W, _quantity("capacitance")]
-_Stray = Annotated[_W, _quantity("capacitance", sign="non-negative")]
-_Inductance = Annotated[_W, _quantity("inductance")]
-_Angle = Annotated[_W, _quantity("angle", sign="any")]
-_WireConductivity = Annotated[_W, _quantity("conductivity")]
-_GroundConductivity = Annotated[_W, _quantity("conductivity", sign="non-negative")]
-_Positive = Annotated[_W, _number("positive")]
-_Component = Annotated[_W, _number("any")]
+_Length = Annotated[_Written, _quantity("length")]
+_Coordinate = Annotated[_Written, _quantity("length", sign="any")]
+_Frequency = Annotated[_Written, _quantity("frequency")]
+_Capacitance = Annotated[_Written, _quantity("capacitance")]
+_Stray = Annotated[_Written, _quantity("capacitance", sign="non-negative")]
+_Inductance = Annotated[_Written, _quantity("inductance")]
+_Angle = Annotated[_Written, _quantity("angle", sign="any")]
+_WireConductivity = Annotated[_Written, _quantity("conductivity")]
+_GroundConductivity = Annotated[_Written, _quantity("conductivity", sign="non-negative")]
+_Positive = Annotated[_Written, _number("positive")]
+_Component = Annotated[_Written, _number("any")]
 _Int = Annotated[int, PlainValidator(_check_integer)]
 _Str = Annotated[str, PlainValidator(_check_string)]
 _Gauge = Annotated[tuple[int, str], PlainValidator(_check_gauge)]
@@ -486,14 +486,14 @@ class _ReceiverIn(_Table):
     loaded_q: _Positive
     position: Annotated[list[_Coordinate], Field(min_length=3, max_length=3)]
     axis: Annotated[list[_Component], Field(min_length=3, max_length=3)] = [
-        _W(0.0, "0"), _W(1.0, "1"), _W(0.0, "0")]
+        _Written(0.0, "0"), _Written(1.0, "1"), _Written(0.0, "0")]
     coil_inductance: _Inductance | None = None
     coil_offset: _Coordinate | None = None
 
 
 class _PatternIn(_Table):
     frequency: _Frequency = _default(PatternSpec.frequency_hz, "frequency")
-    elevation: Annotated[list[_Angle], BeforeValidator(_listify)] = [_W(0.0, '"0 deg"')]
+    elevation: Annotated[list[_Angle], BeforeValidator(_listify)] = [_Written(0.0, '"0 deg"')]
     polarization: Annotated[str, _choice("vertical", "horizontal")] = PatternSpec.polarization
 
 
@@ -752,12 +752,10 @@ def _check_name(name: str | None, source: str) -> tuple[str | None, tuple[str, s
     return name, None
 
 
-def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]]:
+def _physics_winding(m: _SpecIn, d: float, wire_text: str) -> list[tuple[str, str]]:
+    """Stage 2, winding: the (key, message) problems of this section."""
     p: list[tuple[str, str]] = []
-    d = wire.diameter_m
     win = m.winding
-
-    # Winding.
     if win.turns < 1:
         p.append(("winding.turns", f"must be at least 1, got {win.turns}"))
     if not win.pitch.value > d:
@@ -773,8 +771,13 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
                                            f"({side} - 2 × turns × pitch = {_mm(inner)} must "
                                            f"exceed 2 × pitch = {_mm(2 * pitch)})"))
                 break
+    return p
 
-    # Taps.
+
+def _physics_taps(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, taps: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
+    win = m.winding
     taps = m.taps.turns
     if not taps:
         p.append(("taps.turns", "needs at least one tap, got []"))
@@ -795,14 +798,22 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
         if beyond:
             p.append(("taps.turns", f"tap {beyond[0]} in {as_written(taps)} is beyond the "
                                     f"winding (winding.turns = {win.turns})"))
+    return p
 
-    # Leads.
+
+def _physics_leads(m: _SpecIn, d: float, wire_text: str) -> list[tuple[str, str]]:
+    """Stage 2, leads: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     offset = m.leads.offset
     if offset.value < _LEAD_OFFSET_DIAMETERS * d:
         p.append(("leads.offset", f"{offset.text} must be at least 4 × {wire_text} = "
                                   f"{_mm(_LEAD_OFFSET_DIAMETERS * d)}"))
+    return p
 
-    # Sweep.
+
+def _physics_sweep(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, sweep: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     s = m.sweep
     if not s.stop.value > s.start.value:
         p.append(("sweep.stop", f"{s.stop.text} must be above sweep.start = {s.start.text} "
@@ -817,14 +828,23 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
         p.append(("sweep.points", f"must be at least 2, got {s.points}"))
     elif s.points > _MAX_POINTS:
         p.append(("sweep.points", f"must be at most {_MAX_POINTS}, got {s.points}"))
+    return p
 
-    # Mesh.
+
+def _physics_mesh(m: _SpecIn, d: float, wire_text: str) -> list[tuple[str, str]]:
+    """Stage 2, mesh: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     seg = m.mesh.segment_length
     if seg is not None and not seg.value > d:
         p.append(("mesh.segment_length", f"{seg.text} must exceed 2 × the wire radius, that "
                                          f"is {wire_text}"))
+    return p
 
-    # Ground.
+
+def _physics_ground(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, ground: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
+    offset = m.leads.offset
     g = m.ground
     if g is not None and g.height is not None:
         need = m.frame.height.value / 2 + offset.value + _GROUND_CLEARANCE_M
@@ -834,8 +854,12 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
                                        f"leads.offset ({offset.text}) + 1 cm = {_mm(need)}"))
     if g is not None and g.permittivity is not None and g.permittivity.value < 1:
         p.append(("ground.permittivity", f"must be at least 1, got {g.permittivity.text}"))
+    return p
 
-    # Tuner.
+
+def _physics_tuner(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, tuner: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     t = m.tuner
     if t is not None and t.kind == "range" and t.min is not None and t.max is not None:
         if not t.max.value > t.min.value:
@@ -845,8 +869,12 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
             p.append(("tuner.gaps", f"must be at least 1, got {t.gaps}"))
         if t.permittivity is not None and t.permittivity.value < 1:
             p.append(("tuner.permittivity", f"must be at least 1, got {t.permittivity.text}"))
+    return p
 
-    # Receiver.
+
+def _physics_receiver(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, receiver: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     r = m.receiver
     if r is not None:
         if not r.rod_length.value > r.rod_diameter.value:
@@ -864,8 +892,12 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
         if all(c.value == 0 for c in r.axis):
             p.append(("receiver.axis", f"[{', '.join(c.text for c in r.axis)}] has no direction; "
                                        f"give a non-zero vector such as [0, 1, 0]"))
+    return p
 
-    # Pattern.
+
+def _physics_pattern(m: _SpecIn) -> list[tuple[str, str]]:
+    """Stage 2, pattern: the (key, message) problems of this section."""
+    p: list[tuple[str, str]] = []
     pat = m.pattern
     if pat is not None:
         if not pat.elevation:
@@ -880,9 +912,25 @@ def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]
     return p
 
 
+def _physics(m: _SpecIn, wire: WireSpec, wire_text: str) -> list[tuple[str, str]]:
+    """Stage 2: the physical rules, section by section, as (key, message) problems."""
+    d = wire.diameter_m
+    return [problem for stage in (
+        _physics_winding(m, d, wire_text),
+        _physics_taps(m),
+        _physics_leads(m, d, wire_text),
+        _physics_sweep(m),
+        _physics_mesh(m, d, wire_text),
+        _physics_ground(m),
+        _physics_tuner(m),
+        _physics_receiver(m),
+        _physics_pattern(m),
+    ) for problem in stage]
+
+
 # --- Stage 3: size (estimated from the numbers, before any geometry is built) ------------------
 
-def _bare(w: _W) -> bool:
+def _bare(w: _Written) -> bool:
     """True when the user wrote a bare number (read as the SI unit) rather than a quantity string."""
     return not w.text.startswith(('"', "'", "the default"))
 
@@ -905,11 +953,11 @@ def _size_problems(m: _SpecIn, wire: WireSpec) -> list[tuple[str, str]]:
         return []
     drivers = [("frame.width", fr.width), ("frame.height", fr.height)]
     by = {"segment_length": [("mesh.segment_length", seg)],
-          "turn": [("mesh.quality", _W(0, f'"{ms.quality}"'))],
-          "pitch": [("winding.pitch", wd.pitch), ("mesh.quality", _W(0, f'"{ms.quality}"'))],
+          "turn": [("mesh.quality", _Written(0, f'"{ms.quality}"'))],
+          "pitch": [("winding.pitch", wd.pitch), ("mesh.quality", _Written(0, f'"{ms.quality}"'))],
           "wavelength": [("sweep.stop", m.sweep.stop)]}[limit]
     turns = str(wd.turns) if len(str(wd.turns)) <= 12 else f"a {len(str(wd.turns))}-digit number"
-    drivers = [("winding.turns", _W(0, turns))] + drivers + by
+    drivers = [("winding.turns", _Written(0, turns))] + drivers + by
     if math.isfinite(n) and n < 1e12:
         seconds, memory_b = solve_cost(n)
         size = (f"at least {n:,.0f} segments, more than the {MAX_SEGMENTS} this tool solves (about "
@@ -924,7 +972,7 @@ def _size_problems(m: _SpecIn, wire: WireSpec) -> list[tuple[str, str]]:
     return [(key, message)]
 
 
-def _units_hint(key: str, w: _W) -> str:
+def _units_hint(key: str, w: _Written) -> str:
     if not _bare(w):
         return ""
     unit = "Hz" if key == "sweep.stop" else "m"

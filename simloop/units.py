@@ -27,8 +27,10 @@ from simloop.errors import SpecError
 
 __all__ = [
     "KINDS",
+    "FREQUENCY_MATCH_REL",
     "awg_diameter_m",
     "as_written",
+    "find_frequency",
     "format_gauge",
     "format_length",
     "format_length_imperial",
@@ -38,7 +40,24 @@ __all__ = [
     "parse_gauge",
     "parse_option",
     "parse_quantity",
+    "same_frequency",
 ]
+
+#: Two frequencies are the same point when they differ by less than this fraction: far above the
+#: rounding of frequencies built by arithmetic (≈1e-16 relative; the same point reached as
+#: ``start + k·step`` or read back from a cache), far below any step this tool uses (1 Hz at
+#: 30 MHz is 3e-8). [-]
+FREQUENCY_MATCH_REL: Final = 1e-9
+
+
+def same_frequency(a_hz: float, b_hz: float) -> bool:
+    """Whether two frequencies are the same point (within :data:`FREQUENCY_MATCH_REL` of ``b_hz``)."""
+    return abs(a_hz - b_hz) <= FREQUENCY_MATCH_REL * b_hz
+
+
+def find_frequency(frequency_hz: float, candidates):
+    """The first of ``candidates`` that is the same point as ``frequency_hz``, or None."""
+    return next((g for g in candidates if same_frequency(g, frequency_hz)), None)
 
 # Closed unit table: kind -> {unit: (multiplier, divisor)};
 # SI value = number * multiplier / divisor.

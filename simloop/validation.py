@@ -44,18 +44,27 @@ from __future__ import annotations
 import dataclasses
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.optimize import brentq
 
 from simloop import reference
-from simloop.constants import ETA0_OHM as ETA0, MAX_SEGMENTS  # docs/references.md §13
+from simloop.reference import (
+    average_gain,
+    inductance_square_spiral_current_sheet,
+    magnetic_moment_area_m2,
+    radiation_resistance_moment,
+    richardson_extrapolation,
+    rosa_round_wire_correction,
+)
+from simloop.constants import MAX_SEGMENTS  # docs/references.md §13
 from simloop.errors import SolverError
-from simloop.geometry import LoopGeometry
+from simloop.geometry import LoopGeometry, turn_sides_m
 from simloop.impedance import ASYMMETRY_LIMIT, MOM_MAX_SEGMENTS, WINDOW_TOP, SweepResult
+from simloop.lumped import series_branch
 from simloop.losses import proximity_factors, proximity_resistance, winding_length_to_turn
-from simloop.mesh import C0, FLOOR_ABSOLUTE, FLOOR_TRUSTED, Mesh, build_mesh, mesh_rules
+from simloop.mesh import FLOOR_ABSOLUTE, FLOOR_TRUSTED, KERNEL_WARN, Mesh, build_mesh, mesh_rules
+from simloop.units import FREQUENCY_MATCH_REL, same_frequency
 from simloop.solve import Environment, SolveCache, SolveRequest, solve_many
 
 #: Over real ground, a loss-free input resistance below this is not resolved (docs/notes/pynec.md:
@@ -65,224 +74,60 @@ BELOW_RESOLUTION = "below solver resolution"
 #: Accepted range of the power balance (radiated over accepted power of a lossless model): ±5 %,
 #: common practice in method-of-moments modelling (our tolerance, not a published limit).
 AGT_ACCEPT = (0.95, 1.05)
-#: Beyond this range the input resistance is not merely imprecise but wrong.
+#: Beyond this range the input resistance is not merely imprecise but wrong (this tool's choice:
+#: 4–5 times the accepted deviation, and symmetric in dB, ±1 dB).
 AGT_BROKEN = (0.8, 1.25)
-#: Convergence meshes, as multiples of the sweep mesh's target segment length.
+#: Convergence meshes, as multiples of the sweep mesh's target segment length (this tool's choice:
+#: a 2:1 span of segment lengths, the finest still within the segment limits of mesh.py).
 COARSE_FACTOR = 1.5
 FINE_FACTOR = 0.75
 #: Exponent of the pitch-rule error in the winding segment length (docs/notes/pynec.md: Richardson
 #: extrapolation with 1.5 from the 2.5 and 1.67 × pitch pair recovered L within 0.1–0.4 %).
 RICHARDSON_ORDER = 1.5
-#: Observed orders outside this range do not count as a trend.
+#: Observed orders outside this range do not count as a trend (this tool's choice, half to twice
+#: the measured order 1.5).
 ORDER_RANGE = (0.75, 3.0)
-#: Verdict thresholds on |L_MoM / L_quasi-static − 1| and on the convergence spread of L.
+#: Verdict thresholds on |L_MoM / L_quasi-static − 1| and on the convergence spread of L (this
+#: tool's choice, of the size of the measured pitch-rule bias at Δ/pitch = 2.5 and 3.3: about 2 %
+#: and 4 %, docs/notes/pynec.md).
 L_OK, L_CAUTION = 0.02, 0.04
 SPREAD_OK, SPREAD_CAUTION = 0.02, 0.05
-#: Spread of the series resistance over the meshes above which Q is less certain.
+#: Spread of the series resistance over the meshes above which Q is less certain (this tool's
+#: choice, equal to R_LOSS_CAUTION).
 R_SPREAD_CAUTION = 0.05
 #: MoM copper loss against the exact skin-effect formula (NEC type-5 loads were within
 #: 0.1–0.3 % on a single loop, docs/notes/pynec.md); beyond this something else is in the loss.
 R_LOSS_CAUTION = 0.05
-#: Direct-MoM check of the self-resonance: bracket either side of the model's prediction; a
-#: caution when the misfit moves the model's impedance at the top of the band by more than this.
+#: Direct-MoM check of the self-resonance: bracket either side of the model's prediction (±4 %:
+#: wider than the 0.7–2 % misfit measured for fits near the self-resonance, docs/notes/pynec.md);
+#: a caution when the misfit moves the model's impedance at the top of the band by more than 1 %
+#: (this tool's choice, a fifth of RELIABLE_BELOW).
 SRF_BRACKET = 0.04
 SRF_CAUTION = 0.01
 #: Reciprocity defect of the port matrix that earns a caution (the sweep's hard limit is
-#: :data:`simloop.impedance.ASYMMETRY_LIMIT`).
+#: :data:`simloop.impedance.ASYMMETRY_LIMIT`): within the 3–7 % measured on tapped coils whose
+#: inductances were right (simloop.impedance), so a caution, not a failure.
 ASYMMETRY_CAUTION = 0.05
 #: Which loop Q the tune and couple studies use.
 Q_USED_BY_TUNE = "proximity-corrected"
 #: Far-field grid step for the average gain test. [deg]
 AGT_STEP_DEG = 5.0
+#: Frame sides equal within this are a square (the handbook source then needs no "equal perimeter"). [m]
+SQUARE_TOL_M = 1e-9
+#: Self-resonance brackets of different taps closer than this fraction share their solves, and a
+#: bracket frequency is found among the solves within it (the brackets are 2 × SRF_BRACKET wide). [-]
+SRF_MERGE_REL = 1e-6
 
 
-_MESH_RULES_CAUTION = {
-    "segment <= 2 x pitch on the winding": "pitch rule",
-    "uniform segment length (leads included)": "uniform segments",
-    "thin-wire kernel: segment/radius >= 8": "thin-wire kernel",
-    "segment <= 0.05 wavelength at the top frequency": "segment/wavelength",
-}
-
-
-# ------------------------------------------------------------------------------------------------
-# Formulas not (yet) in simloop.reference
-# ------------------------------------------------------------------------------------------------
-
-
-def magnetic_moment_area_m2(starts, ends) -> np.ndarray:
-    r"""Vector area of a closed circuit of straight pieces, m/I = ½ ∮ r × dl. [m²]
-
-    For a straight piece from p to q, ∫ r × dr = p × q, so the vector area is ½ Σ p_k × q_k,
-    independent of the origin when the circuit is closed.
-    """
-    p = np.asarray(starts, dtype=float).reshape(-1, 3)
-    q = np.asarray(ends, dtype=float).reshape(-1, 3)
-    return 0.5 * np.cross(p, q).sum(axis=0)
-
-
-def radiation_resistance_moment(area_vector_m2, frequency_hz) -> float:
-    r"""Radiation resistance of an electrically small closed circuit from its vector area. [Ω]
-
-    .. math:: R_r = \frac{\eta_0 k^4}{6\pi}\,|\mathbf{A}|^2 \approx 320\pi^4\frac{|\mathbf{A}|^2}{\lambda^4}
-
-    The magnetic-dipole term of any small current loop; for N equal plane turns |A| = N·A and it
-    is Balanis' small-loop formula (C. A. Balanis, *Antenna Theory*, 4th ed., 2016, ch. 5), whose
-    constant 320π⁴ takes η0 = 120π; with η0 = μ0·c, as here and in NEC, it is 0.07 % lower.
-    Using the vector area of the actual winding path takes in the unequal turns of a spiral and
-    the lead loop.
-    """
-    k = 2 * np.pi * float(frequency_hz) / C0
-    a2 = float(np.dot(area_vector_m2, area_vector_m2))
-    return ETA0 * k**4 * a2 / (6 * np.pi)
-
-
-def inductance_square_spiral_current_sheet(d_out_m, d_in_m, turns) -> float:
-    r"""Current-sheet inductance of a flat square spiral (Mohan et al. 1999). [H]
-
-    .. math:: L = \frac{\mu_0 n^2 d_{avg} c_1}{2}\left[\ln\frac{c_2}{\rho} + c_3\rho
-              + c_4\rho^2\right],\quad d_{avg} = \frac{d_{out} + d_{in}}{2},\quad
-              \rho = \frac{d_{out} - d_{in}}{d_{out} + d_{in}}
-
-    with c1 = 1.27, c2 = 2.07, c3 = 0.18, c4 = 0.13 for a square spiral; d_out and d_in are the
-    outer and inner side lengths of the winding (conductor edges).
-
-    References
-    ----------
-    .. [1] S. S. Mohan, M. del Mar Hershenson, S. P. Boyd, T. H. Lee, "Simple accurate
-       expressions for planar spiral inductances", IEEE J. Solid-State Circuits 34(10), 1999,
-       pp. 1419–1424 (current-sheet expression, table of c1–c4). Coefficients from memory
-       [mem]: confirm against the paper before relying on them.
-    """
-    d_out, d_in, n = float(d_out_m), float(d_in_m), float(turns)
-    d_avg = 0.5 * (d_out + d_in)
-    rho = (d_out - d_in) / (d_out + d_in)
-    c1, c2, c3, c4 = 1.27, 2.07, 0.18, 0.13
-    return reference.MU0 * n**2 * d_avg * c1 / 2 * (np.log(c2 / rho) + c3 * rho + c4 * rho**2)
-
-
-def rosa_b(turns: int) -> float:
-    r"""Rosa's correction B for the mutual inductances of N round-wire turns against a sheet. [-]
-
-    .. math:: B = -\frac{2}{N}\sum_{k=1}^{N-1}(N-k)\left[F(k) - \ln k\right],\quad
-              F(k) = \tfrac12\left[(k+1)^2\ln(k+1) + (k-1)^2\ln|k-1| - 2k^2\ln k\right]
-              - \tfrac32
-
-    F(k) is the mean of ln(distance) between two strips of unit width whose centres are k apart;
-    B is its difference from the filaments' ln k, summed over the pairs of turns. The sum
-    reproduces Rosa's table (B = 0.1137, 0.1663, 0.1973 for N = 2, 3, 4; 0.2664 for N = 10;
-    0.3365 as N → ∞) [mem for the table; the sum is derived here].
-    """
-    n = int(turns)
-
-    def f(k):
-        km1 = (k - 1) ** 2 * np.log(abs(k - 1)) if k != 1 else 0.0
-        return 0.5 * ((k + 1) ** 2 * np.log(k + 1) + km1 - 2 * k**2 * np.log(k)) - 1.5
-
-    return float(-(2.0 / n) * sum((n - k) * (f(k) - np.log(k)) for k in range(1, n)))
-
-
-def rosa_round_wire_correction(turn_length_m, turns, pitch_m, wire_diameter_m) -> float:
-    r"""Round-wire correction of a current-sheet inductance (Rosa 1908; Grover 1946). [H]
-
-    .. math:: L = L_{sheet} - \frac{\mu_0}{2\pi}\,\ell N (A + B),\qquad
-              A = \tfrac54 - \ln\frac{2p}{d}
-
-    ℓ is the length of one turn, p the pitch, d the wire diameter, B from :func:`rosa_b`. A is
-    Rosa's value for a uniform (DC) current; with the current on the surface it is 0.25 larger.
-    For spaced windings (p ≫ d) A is negative and the correction adds inductance: a current sheet
-    underestimates thin wires.
-
-    References
-    ----------
-    .. [1] E. B. Rosa, "The self and mutual inductances of linear conductors", Bull. Bureau of
-       Standards 4(2), 1908 (corrections A and B).
-    .. [2] F. W. Grover, *Inductance Calculations*, Van Nostrand, 1946.
-    """
-    a = 1.25 - np.log(2 * float(pitch_m) / float(wire_diameter_m))
-    return float(-reference.MU0 / (2 * np.pi) * float(turn_length_m) * int(turns) * (a + rosa_b(turns)))
-
-
-def sphere_weights(theta_deg, phi_deg) -> np.ndarray:
-    r"""Quadrature weights on a θ–φ grid for ∮ F dΩ = Σ w F, shape (nφ, nθ). [sr]
-
-    Composite Simpson in θ over [0°, 180°] (an even number of intervals) with the sin θ factor of
-    the solid angle, uniform (periodic) weights in φ over [0°, 360°).
-    """
-    th = np.radians(np.asarray(theta_deg, dtype=float))
-    ph = np.asarray(phi_deg, dtype=float)
-    n = th.size - 1
-    if n < 2 or n % 2:
-        raise ValueError(f"θ needs an even number of intervals for Simpson's rule, got {n}")
-    h = th[1] - th[0]
-    if not np.allclose(np.diff(th), h) or abs(th[0]) > 1e-9 or abs(th[-1] - np.pi) > 1e-9:
-        raise ValueError("θ must run uniformly from 0° to 180°")
-    dph = 360.0 / ph.size
-    if not np.allclose(ph, ph[0] + dph * np.arange(ph.size)):
-        raise ValueError("φ must be uniform over [0°, 360°)")
-    simpson = np.ones(th.size)
-    simpson[1:-1:2], simpson[2:-1:2] = 4.0, 2.0
-    w_theta = simpson * h / 3 * np.sin(th)
-    return np.radians(dph) * np.broadcast_to(w_theta, (ph.size, th.size))
-
-
-def average_gain(e_theta_v, e_phi_v, theta_deg, phi_deg, input_power_w) -> tuple[float, float]:
-    r"""Average gain of a pattern: radiated power over the sphere / input power. [-]
-
-    .. math:: P_{rad} = \oint \frac{|rE_\theta|^2 + |rE_\phi|^2}{2\eta_0}\,d\Omega,\qquad
-              \mathrm{AGT} = P_{rad}/P_{in}
-
-    Returns (AGT, P_rad [W]). ``e_theta_v``, ``e_phi_v``: r·E, shape (nφ, nθ), peak values. [V]
-    """
-    w = sphere_weights(theta_deg, phi_deg)
-    density = (np.abs(e_theta_v) ** 2 + np.abs(e_phi_v) ** 2) / (2 * ETA0)
-    p_rad = float(np.sum(w * density))
-    return p_rad / float(input_power_w), p_rad
-
-
-def richardson(segment_m, values, order: float = RICHARDSON_ORDER):
-    r"""Extrapolate values(Δ) = v* + cΔ^p to Δ → 0 from the two finest meshes.
-
-    Parameters
-    ----------
-    segment_m : array_like, shape (3,)
-        Segment lengths, coarse to fine. [m]
-    values : array_like, shape (3,)
-    order : float
-        p used for the extrapolation.
-
-    Returns
-    -------
-    (estimate or None, observed order or None, reason)
-        The estimate only when the three values are monotone in Δ and the order they imply lies in
-        :data:`ORDER_RANGE`; the reason says in words why not otherwise.
-    """
-    d = np.asarray(segment_m, dtype=float)
-    v = np.asarray(values, dtype=float)
-    d1, d2 = v[0] - v[1], v[1] - v[2]
-    scale = abs(v[2])
-    if abs(d1) < 1e-4 * scale and abs(d2) < 1e-4 * scale:
-        return float(v[2]), None, "the three meshes agree within 0.01 %"
-    if d1 * d2 <= 0:
-        return None, None, (f"not monotone in segment length (coarse → sweep {-d1 / scale:+.2%}, sweep → "
-                            f"fine {-d2 / scale:+.2%}): no power-law trend to extrapolate")
-    ratio = d1 / d2
-
-    def mismatch(p):
-        return (d[0] ** p - d[1] ** p) / (d[1] ** p - d[2] ** p) - ratio
-
-    lo, hi = 0.05, 8.0
-    if mismatch(hi) < 0:
-        return None, None, (f"converged between the finer two: coarse → sweep {-d1 / scale:+.2%}, sweep → "
-                            f"fine {-d2 / scale:+.2%}; the steps shrink faster than any power law")
-    if mismatch(lo) > 0:
-        return None, None, (f"the steps do not shrink with the segment length (coarse → sweep "
-                            f"{-d1 / scale:+.2%}, sweep → fine {-d2 / scale:+.2%}): no power-law trend")
-    p_obs = float(brentq(mismatch, lo, hi))
-    if not ORDER_RANGE[0] <= p_obs <= ORDER_RANGE[1]:
-        return None, p_obs, (f"observed order {p_obs:.2f} lies outside {ORDER_RANGE[0]}–"
-                             f"{ORDER_RANGE[1]}: the meshes are not in the asymptotic range")
-    c = (v[1] - v[2]) / (d[1] ** order - d[2] ** order)
-    return float(v[2] - c * d[2] ** order), p_obs, f"Richardson, p = {order} (observed {p_obs:.2f})"
+#: Mesh rules (:attr:`simloop.mesh.Rule.key`) whose warning makes the verdict a caution: those that
+#: bias the MoM's L or R (the floor and size warnings only move points to the circuit solver).
+MESH_RULES_CAUTION = ("pitch", "uniform", "kernel", "wavelength")
+#: The fit window may reach this factor beyond WINDOW_TOP × self-resonance before it earns a
+#: caution: 5 %, our allowance for the grid step of the fit frequencies (not a published value).
+WINDOW_SLACK = 1.05
+#: Ceiling of x = (f_stop / f_srf)² in the SRF-misfit estimate 2δx/(1 − x), which diverges at
+#: x = 1 (a band reaching the resonance is judged as if it ended 0.5 % below it). [-]
+SRF_X_CEILING = 0.99
 
 
 # ------------------------------------------------------------------------------------------------
@@ -314,7 +159,7 @@ class Check:
     rel_diff_mom: float | None
     rel_diff_handbook: float | None
     flag: str | None = None
-    note: str = ""
+    notes: tuple = ()  # of Note, worded by simloop.report_validate.check_note
     circuit: float | None = None
     source_circuit: str | None = None
     rel_diff_circuit: float | None = None
@@ -360,7 +205,10 @@ class Convergence:
     resistance_spread: float
     extrapolated_inductance_h: float | None
     observed_order: float | None
-    note: str
+    #: Richardson outcome: code and parameters (see :class:`simloop.reference.RichardsonResult`),
+    #: worded by :func:`simloop.report_validate.trend_text`.
+    trend_code: str
+    trend_params: dict
 
 
 @dataclass(frozen=True)
@@ -377,9 +225,35 @@ class AverageGain:
 
 
 @dataclass(frozen=True)
+class Note:
+    """A remark on one check row: a code and the numbers behind it, worded by
+    :func:`simloop.report_validate.note_text` (codes listed there)."""
+
+    code: str
+    params: dict
+
+
+def _note(code: str, **params) -> Note:
+    return Note(code, params)
+
+
+@dataclass(frozen=True)
+class Reason:
+    """One reason of a verdict: its status, a code and the numbers behind it.
+
+    Worded by :func:`simloop.report_validate.reason_text`; the codes and their parameters are
+    listed there.
+    """
+
+    status: str  # "ok" | "caution" | "unreliable"
+    code: str
+    params: dict
+
+
+@dataclass(frozen=True)
 class Verdict:
     status: str  # "ok" | "caution" | "unreliable"
-    reasons: tuple[str, ...]
+    reasons: tuple[Reason, ...]
 
 
 @dataclass(frozen=True)
@@ -436,7 +310,7 @@ def _rel(value, ref):
     return float(value / ref - 1.0)
 
 
-def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=None, note=""):
+def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=None, notes=()):
     mom = None if mom is None or not np.isfinite(mom) else float(mom)
     qs = None if qs is None or not np.isfinite(qs) else float(qs)
     hb = None if hb is None or not np.isfinite(hb) else float(hb)
@@ -450,7 +324,7 @@ def _check(quantity, unit, tap, f, mom, qs, hb, src_mom, src_qs, src_hb, flag=No
         reference=ref_name,
         rel_diff_mom=_rel(mom, ref) if ref_name == "quasi_static" else None,
         rel_diff_handbook=_rel(hb, ref),
-        flag=flag, note=note,
+        flag=flag, notes=tuple(notes),
     )
 
 
@@ -460,11 +334,6 @@ def _quietly(fn, *args, **kwargs):
         warnings.simplefilter("always")
         value = fn(*args, **kwargs)
     return value, [str(w.message) for w in caught]
-
-
-def _series(y: np.ndarray, cap: np.ndarray, f: float) -> np.ndarray:
-    """Series branch of a port matrix with the shunt capacitance removed, (Y − jωC)⁻¹. [Ω]"""
-    return np.linalg.inv(y - 1j * 2 * np.pi * f * cap)
 
 
 def _mesh_run(label, mesh: Mesh, geom: LoopGeometry, spec) -> MeshRun:
@@ -477,9 +346,7 @@ def _mesh_run(label, mesh: Mesh, geom: LoopGeometry, spec) -> MeshRun:
 
 def _turn_sides(spec, n: int) -> tuple[np.ndarray, np.ndarray]:
     """Centre-line sides (width, height) of the first n turns. [m]"""
-    k = np.arange(n)
-    inset = 2 * k * spec.winding.pitch_m if spec.winding.style == "spiral" else np.zeros(n)
-    return spec.frame.width_m - inset, spec.frame.height_m - inset
+    return turn_sides_m(spec.winding.style, spec.frame.width_m, spec.frame.height_m, spec.winding.pitch_m, n)
 
 
 def _handbook_inductance(spec, n: int) -> tuple[float, str]:
@@ -493,7 +360,7 @@ def _handbook_inductance(spec, n: int) -> tuple[float, str]:
         s = 0.5 * (w + h)
         sheet = float(reference.inductance_square_coil_grover1946(s, n, n * p))
         src = (f"Grover 1946 square-coil current-sheet formula (side {s * 1e3:.0f} mm"
-               f"{', square of equal perimeter' if abs(w - h) > 1e-9 else ''}, length N·pitch) "
+               f"{', square of equal perimeter' if abs(w - h) > SQUARE_TOL_M else ''}, length N·pitch) "
                f"+ Rosa 1908 round-wire correction A + B")
         return sheet + rosa_round_wire_correction(4 * s, n, p, d), src
     ws, hs = _turn_sides(spec, n)
@@ -501,7 +368,7 @@ def _handbook_inductance(spec, n: int) -> tuple[float, str]:
     d_in = 0.5 * (ws[-1] + hs[-1]) - d
     src = ("Mohan et al. 1999 current-sheet expression for square spirals (empirical, fitted to planar "
            "spirals; coefficients approximate, to be confirmed against the paper)"
-           + (", mean side of the rectangle" if abs(w - h) > 1e-9 else ""))
+           + (", mean side of the rectangle" if abs(w - h) > SQUARE_TOL_M else ""))
     return inductance_square_spiral_current_sheet(d_out, d_in, n), src
 
 
@@ -589,9 +456,9 @@ def _circuit_values(circuits, sweep: SweepResult, f: float) -> list[dict]:
     with_prox, skin_only, lossless = circuits
     cap = sweep.model.capacitance_f
     w = 2 * np.pi * f
-    zs0 = _series(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
-    zsp = _series(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
-    zsl = _series(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
+    zs0 = series_branch(np.linalg.inv(skin_only.solve(f).z_ohm), cap, f)
+    zsp = series_branch(np.linalg.inv(with_prox.solve(f).z_ohm), cap, f)
+    zsl = series_branch(np.linalg.inv(lossless.solve(f).z_ohm), cap, f)
     out = []
     for i in range(zs0.shape[0]):
         rr = float(zsl[i, i].real)
@@ -617,37 +484,34 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
     perfect = ground == "perfect"
     ok_l = lossy is not None and not isinstance(lossy, SolverError)
     ok_o = lossless is not None and not isinstance(lossless, SolverError)
-    zs_l = _series(np.linalg.inv(lossy.z), cap, f)[i, i] if ok_l else None
-    zs_o = _series(np.linalg.inv(lossless.z), cap, f)[i, i] if ok_o else None
+    zs_l = series_branch(np.linalg.inv(lossy.z), cap, f)[i, i] if ok_l else None
+    zs_o = series_branch(np.linalg.inv(lossless.z), cap, f)[i, i] if ok_o else None
     fr = _formula_resistances(sweep, i, tf, f)
     rows = []
     # Inductance of the series branch
     l_app = lossy.z[i, i].imag / w if ok_l else None
     rows.append(_check("L", "H", n, f, None if zs_l is None else zs_l.imag / w, tf.l_qs, tf.l_hb,
                        "MoM, series branch (fitted shunt C removed)", _SRC_QS_L, tf.src_hb,
-                       note="" if l_app is None else f"apparent X/ω = {l_app * 1e6:.3f} µH"))
+                       notes=() if l_app is None else [_note("apparent-inductance", inductance_h=l_app)]))
     # Radiation resistance: free space; doubled by a perfect ground; real ground adds its loss
     r_in0 = None if zs_o is None else zs_o.real
     if ground == "real":
-        flag, note = None, ("lossless wire over real ground: radiation plus ground loss, which the "
-                            "free-space formulas do not have")
+        flag, note = None, _note("real-ground-radiation")
         if r_in0 is not None and r_in0 < GROUND_RESOLUTION_OHM:
             flag = BELOW_RESOLUTION
-            note = (f"lossless-wire input resistance {'negative' if r_in0 < 0 else 'below 0.1 Ω'} over real "
-                    f"ground: not resolved by the solver (ground-loss increments below "
-                    f"~{GROUND_RESOLUTION_OHM} Ω are noise)")
+            note = _note("below-ground-resolution", resistance_ohm=float(r_in0), resolution_ohm=GROUND_RESOLUTION_OHM)
             r_in0 = None
         rows.append(Check("R_rad+ground", "ohm", n, f, r_in0, None, None, "MoM, lossless wire, series branch",
-                          None, None, None, None, None, flag=flag, note=note))
+                          None, None, None, None, None, flag=flag, notes=(note,)))
     else:
         tail = " × 2 (image)" if perfect else ""
         rows.append(_check("R_rad", "ohm", n, f, r_in0, fr["rr_qs"], fr["rr_hb"],
                            "MoM, lossless wire, series branch" + (" over perfect ground" if perfect else ""),
-                           _SRC_QS_RR + tail, _SRC_HB_RR + tail, note="; ".join(fr["warn"])))
+                           _SRC_QS_RR + tail, _SRC_HB_RR + tail, notes=[_note("formula-warning", message=w) for w in fr["warn"]]))
         if agt is not None and r_in0 is not None and not perfect:
             rows.append(_check("R_rad far field", "ohm", n, f, agt * r_in0, fr["rr_qs"], fr["rr_hb"],
                                "MoM far field: AGT × lossless input resistance", _SRC_QS_RR, _SRC_HB_RR,
-                               note=f"radiated/accepted power {agt:.4f}"))
+                               notes=[_note("power-ratio", ratio=agt)]))
     # Wire loss: skin effect only (what NEC models), then with the proximity effect
     rho = sweep.resistivity_ohm_m
     if rho is not None:
@@ -657,30 +521,30 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
             "MoM: lossy − lossless series resistance (NEC conductivity load: skin effect only)",
             "exact round-wire skin effect (Ramo et al. 1994 sec. 5.6) × length of the current path",
             "surface resistance √(πfμ0ρ)/(2πa) × N × mean turn perimeter (no leads)",
-            note=f"current path {tf.path_length_m:.3f} m, of which winding {tf.winding_length_m:.3f} m"))
+            notes=[_note("path-length", path_m=tf.path_length_m, winding_m=tf.winding_length_m)]))
         rows.append(_check(
             "R_loss skin+prox", "ohm", n, f, None if r_loss is None else r_loss + fr["prox"],
             fr["qs_skin"] + fr["prox"], fr["hb_prox"],
             "MoM skin loss + proximity term of simloop.losses (as tune uses)",
             "exact skin effect × path length + Smith 1972 proximity factor on the winding",
             "Smith 1972: (N P/(2πa)) R_s (1 + R_p/R_0)",
-            note=f"R_p/R_0 = {tf.proximity_factor:.4f} for {n} turns at c/a = "
-                 f"{sweep.geometry.pitch_m / (2 * sweep.geometry.wire_radius_m):.2f}"))
+            notes=[_note("proximity-factor", factor=tf.proximity_factor, turns=n,
+                         spacing_ratio=sweep.geometry.pitch_m / (2 * sweep.geometry.wire_radius_m))]))
     # Q of the tuned circuit: ωL/R_s of the series branch
-    q_note = "MoM Q includes the ground loss; the formulas do not" if ground == "real" else ""
+    q_note = [_note("q-includes-ground")] if ground == "real" else []
     ok_q = zs_l is not None and zs_l.real > 0
     rows.append(_check("Q skin", "-", n, f, zs_l.imag / zs_l.real if ok_q else None,
                        w * tf.l_qs / (fr["qs_skin"] + fr["rr_qs"]), w * tf.l_hb / (fr["hb_skin"] + fr["rr_hb"]),
                        "MoM series branch, ωL/R_s (skin effect only)",
                        "ωL_qs / (skin loss + radiation), quasi-static",
-                       "ωL_hb / (surface-resistance loss + Balanis R_rad)", note=q_note))
+                       "ωL_hb / (surface-resistance loss + Balanis R_rad)", notes=q_note))
     if rho is not None:
         rows.append(_check("Q skin+prox", "-", n, f, zs_l.imag / (zs_l.real + fr["prox"]) if ok_q else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
                            "MoM series branch + proximity term (used by tune)",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
-                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)", note=q_note))
+                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)", notes=q_note))
     return rows
 
 
@@ -707,24 +571,24 @@ def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[C
 def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
     """Self-resonance by direct MoM either side of the model's prediction, and Medhurst's."""
     f_model = float(sweep.self_resonance_hz[i])
-    srf_mom, note = None, ""
+    srf_mom, notes = None, []
     if np.isfinite(f_model):
         lo_f, hi_f = f_model * (1 - SRF_BRACKET), f_model * (1 + SRF_BRACKET)
-        a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < 1e-6), None)
-        b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < 1e-6), None)
+        a = next((s for g, s in srf_solves.items() if abs(g / lo_f - 1) < SRF_MERGE_REL), None)
+        b = next((s for g, s in srf_solves.items() if abs(g / hi_f - 1) < SRF_MERGE_REL), None)
         if a is None or b is None or isinstance(a, SolverError) or isinstance(b, SolverError):
-            note = "direct MoM solves either side of the model's resonance missing or failed"
+            notes.append(_note("srf-solves-missing"))
         else:
             g = [2 * np.pi * s.frequency_hz * (1 / s.z[i, i]).imag for s in (a, b)]  # ω·Im Y_in ≈ ω²C − 1/L
             w2 = [(2 * np.pi * s.frequency_hz) ** 2 for s in (a, b)]
             if g[0] < 0 < g[1]:
                 srf_mom = float(np.sqrt(w2[0] - g[0] * (w2[1] - w2[0]) / (g[1] - g[0])) / (2 * np.pi))
-                note = f"fitted model: {f_model / 1e6:.4f} MHz"
+                notes.append(_note("srf-model", frequency_hz=f_model))
             else:
-                note = (f"no resonance between {lo_f / 1e6:.3f} and {hi_f / 1e6:.3f} MHz in direct MoM: the "
-                        f"model's resonance ({f_model / 1e6:.3f} MHz) is off by more than {SRF_BRACKET:.0%}")
+                notes.append(_note("srf-not-bracketed", low_hz=lo_f, high_hz=hi_f, frequency_hz=f_model,
+                                   bracket=SRF_BRACKET))
     else:
-        note = "no self-resonance within the model's reach"
+        notes.append(_note("srf-none"))
     hb_srf = None
     if spec.winding.style == "stacked" and spec.winding.turns > 1:
         big_n = spec.winding.turns
@@ -732,11 +596,10 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
         c_med, warn = _quietly(reference.self_capacitance_medhurst1947, big_n * spec.winding.pitch_m, d_eq)
         l_full, _ = _handbook_inductance(spec, big_n)
         hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
-        note += (f"; Medhurst C = {float(c_med) * 1e12:.1f} pF for the whole winding as a solenoid of equal "
-                 f"perimeter (Medhurst 1947 measured solenoids: not meant for flat box loops)" + "".join(f"; {x}" for x in warn))
+        notes += [_note("medhurst", capacitance_f=float(c_med))] + [_note("formula-warning", message=w) for w in warn]
     return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
                   "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
-                  "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, note=note)
+                  "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, notes=notes)
 
 
 def _average_gains(ff, sweep: SweepResult, f: float):
@@ -764,7 +627,7 @@ def _check_frequencies(sweep: SweepResult) -> list[float]:
     picks = [fit[0], fit[len(fit) // 2], fit[-1]]
     out = []
     for f in picks:
-        if all(abs(f / g - 1) > 1e-9 for g in out):
+        if not any(same_frequency(f, g) for g in out):
             out.append(float(f))
     return out
 
@@ -794,68 +657,142 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
     ValidationResult
     """
     t_start = time.monotonic()
-    geom, mesh, env = sweep.geometry, sweep.mesh, sweep.environment
-    rho = sweep.resistivity_ohm_m
-    lossless_env = dataclasses.replace(env, wire_conductivity_s_m=None)
-    free_lossless = Environment(wire_conductivity_s_m=None)
-    ground = env.ground
-    notes: list[str] = []
-    freqs = _check_frequencies(sweep)
+    planned = _plan_solves(sweep, convergence)
+    results = solve_many(planned.requests, workers=workers, cache=cache,
+                         progress=(lambda d, t: progress("validate", d, t)) if progress else None)
+    solved = _collect_solves(sweep, planned, results)
+    notes = planned.notes + solved.notes
+    agt_rows, agt_by_tap, agt_notes = (_average_gains(solved.far_field, sweep, planned.agt_hz)
+                                       if planned.mom_ok else ([], {}, []))
+    notes += agt_notes
+    checks = tuple(_all_checks(spec, sweep, planned, solved, agt_by_tap))
+    if sweep.environment.ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
+        notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
+                     "below the solver's resolution: radiation resistance not validated there; the "
+                     "power balance ran in free space")
+    meshes: list[MeshRun] = []
+    conv: list[Convergence] = []
+    if planned.convergence is not None:
+        meshes, conv, conv_notes = _convergence(spec, sweep, planned.convergence, solved.convergence)
+        notes += conv_notes
+    elif convergence:
+        notes.append("mesh convergence needs three solvable meshes; not assessed")
+    verdict, tap_verdicts = _verdict(sweep, checks, conv, agt_rows, convergence and planned.mom_ok,
+                                     planned.convergence, planned.mom_ok)
+    return ValidationResult(
+        name=sweep.name,
+        tap_turns=tuple(sweep.tap_turns),
+        style=spec.winding.style,
+        ground=sweep.environment.ground,
+        checks=checks,
+        meshes=tuple(meshes),
+        convergence=tuple(conv),
+        average_gain=tuple(agt_rows),
+        verdict=verdict,
+        tap_verdicts=tap_verdicts,
+        check_frequencies_hz=np.array(planned.frequencies_hz),
+        convergence_frequency_hz=None if planned.convergence is None else planned.convergence["frequency_hz"],
+        agt_frequency_hz=None if isinstance(solved.far_field, SolverError) else planned.agt_hz,
+        inductance_h=sweep.inductance_h,
+        inductance_error=np.asarray(sweep.inductance_error, dtype=float),
+        quasi_static_inductance_h=np.asarray(sweep.quasi_static_inductance_h, dtype=float),
+        self_resonance_hz=np.asarray(sweep.self_resonance_hz, dtype=float),
+        sweep_mesh=_mesh_run("sweep", sweep.mesh, sweep.geometry, spec),
+        notes=tuple(notes + ([sweep.window_note] if sweep.window_note else [])),
+        seconds=time.monotonic() - t_start,
+    )
 
-    # --- Every extra MoM solve, planned up front and run in one worker pool -----------------
-    requests: list[SolveRequest] = []
-    index: dict = {}
 
-    def add(m, e, f, kind="ports"):
+@dataclass
+class _PlannedSolves:
+    """Every extra MoM solve of a validation, planned up front to run in one worker pool, and
+    where each check finds its solve (indices into ``requests``)."""
+
+    frequencies_hz: list
+    mom_ok: bool
+    agt_hz: float
+    requests: list = field(default_factory=list)
+    index: dict = field(default_factory=dict)
+    lossy: dict = field(default_factory=dict)
+    lossless: dict = field(default_factory=dict)
+    far_field: int | None = None
+    srf: dict = field(default_factory=dict)
+    convergence: dict | None = None
+    convergence_index: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+
+    def add(self, m, e, f, kind="ports") -> int:
         key = (id(m), e, round(float(f), 3), kind)
-        if key not in index:
-            index[key] = len(requests)
-            requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
-        return index[key]
+        if key not in self.index:
+            self.index[key] = len(self.requests)
+            self.requests.append(SolveRequest(m, e, float(f), kind, AGT_STEP_DEG))
+        return self.index[key]
 
+
+def _plan_solves(sweep: SweepResult, convergence: bool) -> _PlannedSolves:
+    """Lossy and lossless solves at the check frequencies, the far field of the power balance, the
+    brackets of each self-resonance and the convergence meshes."""
+    mesh, env = sweep.mesh, sweep.environment
+    freqs = _check_frequencies(sweep)
     # The MoM is checked where it can be: at most MOM_MAX_SEGMENTS, above its absolute floor.
     mom_ok = mesh.n_segments <= MOM_MAX_SEGMENTS
-    f5 = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
-    f7 = mesh.floor_frequency_hz(FLOOR_TRUSTED)
-    mom_freqs = [f for f in freqs if f >= f5] if mom_ok else []
+    f_floor_abs = mesh.floor_frequency_hz(FLOOR_ABSOLUTE)
+    p = _PlannedSolves(freqs, mom_ok, max(freqs[-1], mesh.floor_frequency_hz(FLOOR_TRUSTED)))
+    mom_freqs = [f for f in freqs if f >= f_floor_abs] if mom_ok else []
     if not mom_ok:
-        notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
-                     f"MoM solve is attempted for; the circuit solver is checked against the formulas")
+        p.notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
+                       f"MoM solve is attempted for; the circuit solver is checked against the formulas")
     elif len(mom_freqs) < len(freqs):
-        notes.append(f"MoM column empty below its floor {f5 / 1e6:.3f} MHz (segments < 5e-5 λ)")
-    agt_f = max(freqs[-1], f7)
-    i_lossy = {f: add(mesh, env, f) for f in mom_freqs}
-    i_ff = add(mesh, free_lossless, agt_f, "far_field") if mom_ok else None
-    if rho is None:
-        i_lossless = dict(i_lossy)
+        p.notes.append(f"MoM column empty below its floor {f_floor_abs / 1e6:.3f} MHz (segments < 5e-5 λ)")
+    p.lossy = {f: p.add(mesh, env, f) for f in mom_freqs}
+    if mom_ok:
+        p.far_field = p.add(mesh, Environment(wire_conductivity_s_m=None), p.agt_hz, "far_field")
+    if sweep.resistivity_ohm_m is None:
+        p.lossless = dict(p.lossy)
     else:
-        i_lossless = {f: add(mesh, lossless_env, f) for f in mom_freqs
-                      if not (ground == "free-space" and f == agt_f)}
+        lossless_env = dataclasses.replace(env, wire_conductivity_s_m=None)
+        p.lossless = {f: p.add(mesh, lossless_env, f) for f in mom_freqs
+                      if not (env.ground == "free-space" and f == p.agt_hz)}
     # Direct MoM self-resonance: bracket either side of each distinct circuit prediction.
     srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
-    i_srf: dict[float, int] = {}
     for f in srf_model[np.isfinite(srf_model)] if mom_ok else []:
         for g in (f * (1 - SRF_BRACKET), f * (1 + SRF_BRACKET)):
-            if g >= f5 and all(abs(g / b - 1) > 1e-6 for b in i_srf):
-                i_srf[float(g)] = add(mesh, env, g)
-    plan = _convergence_plan(sweep) if convergence and mom_ok else None
-    if plan is not None:
-        notes += plan["notes"]
-        i_conv = {label: add(m, env, plan["frequency_hz"]) for label, m in plan["meshes"]}
-    results = solve_many(requests, workers=workers, cache=cache,
-                         progress=(lambda d, t: progress("validate", d, t)) if progress else None)
-    lossy = {f: results[j] for f, j in i_lossy.items()}
-    ff = results[i_ff] if i_ff is not None else SolverError("no MoM: mesh too large")
-    lossless = {f: results[j] for f, j in i_lossless.items()}
-    if ground == "free-space" and rho is not None and not isinstance(ff, SolverError):
-        lossless[agt_f] = ff  # the same lossless free-space factorisation
-    srf_solves = {g: results[j] for g, j in i_srf.items()}
-    failed = sorted({str(r) for r in results if isinstance(r, SolverError)})
-    notes += [f"solve failed, checks that need it are omitted: {m}" for m in failed]
+            if g >= f_floor_abs and all(abs(g / b - 1) > SRF_MERGE_REL for b in p.srf):
+                p.srf[float(g)] = p.add(mesh, env, g)
+    p.convergence = _convergence_plan(sweep) if convergence and mom_ok else None
+    if p.convergence is not None:
+        p.notes += p.convergence["notes"]
+        p.convergence_index = {label: p.add(m, env, p.convergence["frequency_hz"])
+                               for label, m in p.convergence["meshes"]}
+    return p
 
-    # --- Rows ---------------------------------------------------------------------------------
-    agt_rows, agt_by_tap, agt_notes = _average_gains(ff, sweep, agt_f) if mom_ok else ([], {}, [])
-    notes += agt_notes
+
+@dataclass(frozen=True)
+class _Solved:
+    lossy: dict
+    lossless: dict
+    far_field: object
+    srf: dict
+    convergence: dict
+    notes: list
+
+
+def _collect_solves(sweep: SweepResult, p: _PlannedSolves, results) -> _Solved:
+    """The results by purpose; failed solves become notes (their checks are omitted)."""
+    ff = results[p.far_field] if p.far_field is not None else SolverError("no MoM: mesh too large")
+    lossless = {f: results[j] for f, j in p.lossless.items()}
+    if sweep.environment.ground == "free-space" and sweep.resistivity_ohm_m is not None \
+            and not isinstance(ff, SolverError):
+        lossless[p.agt_hz] = ff  # the same lossless free-space factorisation
+    failed = sorted({str(r) for r in results if isinstance(r, SolverError)})
+    return _Solved(lossy={f: results[j] for f, j in p.lossy.items()}, lossless=lossless, far_field=ff,
+                   srf={g: results[j] for g, j in p.srf.items()},
+                   convergence={lb: results[j] for lb, j in p.convergence_index.items()},
+                   notes=[f"solve failed, checks that need it are omitted: {m}" for m in failed])
+
+
+def _circuit_columns(sweep: SweepResult):
+    """The circuit solver's values per frequency (memoised) and its L0 per tap."""
     circuits = None if sweep.circuit is None else (
         sweep.circuit, sweep.circuit.with_proximity(False),
         dataclasses.replace(sweep.circuit, resistivity_ohm_m=None))
@@ -870,63 +807,29 @@ def run_validate(spec, sweep: SweepResult, *, workers: int | None = None,
 
     circ_l0 = [None if sweep.circuit is None else {"L0": float(sweep.circuit_inductance_h[i, i])}
                for i in range(len(sweep.tap_turns))]
+    return circ_values, circ_l0
+
+
+def _all_checks(spec, sweep: SweepResult, p: _PlannedSolves, solved: _Solved, agt_by_tap: dict) -> list[Check]:
+    """Every row of the comparison, tap by tap: L0, the per-frequency rows, the band Q and SRF."""
+    circ_values, circ_l0 = _circuit_columns(sweep)
+    srf_model = np.asarray(sweep.self_resonance_hz, dtype=float)
     checks: list[Check] = []
     for i, n in enumerate(sweep.tap_turns):
         tf = _tap_formulas(spec, sweep, i)
-        l0_note = f"sweep error estimate ±{sweep.inductance_error[i]:.1%}"
+        l0_notes = [_note("sweep-error", error=float(sweep.inductance_error[i]))]
         if tf.l_sheet is not None:
-            l0_note += f"; bare current-sheet formula without the round-wire correction: {tf.l_sheet * 1e6:.3f} µH"
+            l0_notes.append(_note("sheet-without-round-wire", inductance_h=tf.l_sheet))
         l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, "fitted MoM model (sweep), L0",
-                        _SRC_QS_L, tf.src_hb, note=l0_note)
+                        _SRC_QS_L, tf.src_hb, notes=l0_notes)
         checks.append(_add_circuit([l0_row], circ_l0[i])[0])
-        for f in freqs:
-            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, lossy.get(f), lossless.get(f),
-                                                     agt_by_tap.get(i) if f == agt_f else None),
+        for f in p.frequencies_hz:
+            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
+                                                     agt_by_tap.get(i) if f == p.agt_hz else None),
                                    circ_values(f)[i])
         checks += [_add_circuit([r], circ_values(r.frequency_hz)[i])[0] for r in _band_q_checks(spec, sweep, i, tf)]
-        checks.append(_add_circuit([_srf_check(spec, sweep, i, srf_solves)], {"SRF": srf_model[i]})[0])
-
-    if ground == "real" and any(c.flag == BELOW_RESOLUTION for c in checks):
-        notes.append("over real ground the lossless-wire input resistance (radiation + ground loss) is "
-                     "below the solver's resolution: radiation resistance not validated there; the "
-                     "power balance ran in free space")
-
-    # --- Mesh convergence --------------------------------------------------------------------
-    sweep_run = _mesh_run("sweep", mesh, geom, spec)
-    meshes: list[MeshRun] = []
-    conv: list[Convergence] = []
-    f_conv = None
-    if plan is not None:
-        f_conv = plan["frequency_hz"]
-        meshes, conv, conv_notes = _convergence(spec, sweep, plan, {lb: results[j] for lb, j in i_conv.items()})
-        notes += conv_notes
-    elif convergence:
-        notes.append("mesh convergence needs three solvable meshes; not assessed")
-
-    checks_t = tuple(checks)
-    verdict, tap_verdicts = _verdict(sweep, checks_t, conv, agt_rows, convergence and mom_ok, plan, mom_ok)
-    return ValidationResult(
-        name=sweep.name,
-        tap_turns=tuple(sweep.tap_turns),
-        style=spec.winding.style,
-        ground=ground,
-        checks=checks_t,
-        meshes=tuple(meshes),
-        convergence=tuple(conv),
-        average_gain=tuple(agt_rows),
-        verdict=verdict,
-        tap_verdicts=tap_verdicts,
-        check_frequencies_hz=np.array(freqs),
-        convergence_frequency_hz=f_conv,
-        agt_frequency_hz=None if isinstance(ff, SolverError) else agt_f,
-        inductance_h=sweep.inductance_h,
-        inductance_error=np.asarray(sweep.inductance_error, dtype=float),
-        quasi_static_inductance_h=np.asarray(sweep.quasi_static_inductance_h, dtype=float),
-        self_resonance_hz=srf_model,
-        sweep_mesh=sweep_run,
-        notes=tuple(notes + ([sweep.window_note] if sweep.window_note else [])),
-        seconds=time.monotonic() - t_start,
-    )
+        checks.append(_add_circuit([_srf_check(spec, sweep, i, solved.srf)], {"SRF": srf_model[i]})[0])
+    return checks
 
 
 def _convergence_plan(sweep: SweepResult) -> dict | None:
@@ -937,20 +840,20 @@ def _convergence_plan(sweep: SweepResult) -> dict | None:
                   ("sweep", sweep.mesh),
                   ("fine", build_mesh(geom, FINE_FACTOR * sweep.mesh.target_m, sweep.mesh.quality))]
     for label, m in candidates:
-        if m.shortest_m < 2 * m.radius_m or m.n_segments > MAX_SEGMENTS:
+        if m.shortest_m < KERNEL_WARN * m.radius_m or m.n_segments > MAX_SEGMENTS:
             return None
     srf = float(np.nanmin(sweep.self_resonance_hz)) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
-    f7 = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
-    f5 = max(m.floor_frequency_hz(FLOOR_ABSOLUTE) for _, m in candidates)
+    f_floor = max(m.floor_frequency_hz(FLOOR_TRUSTED) for _, m in candidates)
+    f_floor_abs = max(m.floor_frequency_hz(FLOOR_ABSOLUTE) for _, m in candidates)
     near_srf = False
-    if srf is None or f7 <= 0.6 * srf:
-        f_c = f7
+    if srf is None or f_floor <= WINDOW_TOP * srf:
+        f_c = f_floor
     else:
-        f_c = max(f5, 0.6 * srf)
-        near_srf = f_c > 0.6 * srf * (1 + 1e-9)
+        f_c = max(f_floor_abs, WINDOW_TOP * srf)
+        near_srf = f_c > WINDOW_TOP * srf * (1 + FREQUENCY_MATCH_REL)
         notes.append(f"mesh convergence compared at {f_c / 1e6:.3f} MHz = {f_c / srf:.2f} × self-resonance: "
-                     f"the finest mesh's floor (7e-5 λ) lies at {f7 / 1e6:.3f} MHz, "
-                     + ("so the floor was relaxed towards 5e-5 λ" if f_c < f7 else "")
+                     f"the finest mesh's floor (7e-5 λ) lies at {f_floor / 1e6:.3f} MHz, "
+                     + ("so the floor was relaxed towards 5e-5 λ" if f_c < f_floor else "")
                      + (" and the shunt-capacitance correction is large there" if near_srf else ""))
     return {"meshes": candidates, "frequency_hz": float(f_c), "near_srf": near_srf,
             "srf_ratio": None if srf is None else f_c / srf, "notes": notes}
@@ -968,21 +871,26 @@ def _convergence(spec, sweep: SweepResult, plan: dict, solved: dict):
     segs = np.array([r.winding_segment_m for r in runs])
     w = 2 * np.pi * f_c
     conv = []
-    zs = [_series(s.y, model.capacitance_f, f_c) for s in results]
+    zs = [series_branch(s.y, model.capacitance_f, f_c) for s in results]
     for i, n in enumerate(sweep.tap_turns):
         l_s = np.array([z[i, i].imag / w for z in zs])
         r_s = np.array([z[i, i].real for z in zs])
         l_app = np.array([s.z[i, i].imag / w for s in results])
         spread_l = float((l_s.max() - l_s.min()) / l_s[1])
         spread_r = float((r_s.max() - r_s.min()) / abs(r_s[1]))
-        est, order, reason = richardson(segs, l_s)
+        trend = richardson_extrapolation(segs, l_s, RICHARDSON_ORDER, ORDER_RANGE)
         conv.append(Convergence(tap=n, frequency_hz=f_c, inductance_h=l_s, apparent_inductance_h=l_app,
                                 resistance_ohm=r_s, inductance_spread=spread_l, resistance_spread=spread_r,
-                                extrapolated_inductance_h=est, observed_order=order, note=reason))
+                                extrapolated_inductance_h=trend.estimate, observed_order=trend.observed_order,
+                                trend_code=trend.code, trend_params=trend.params))
     return runs, conv, []
 
 
-def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str]]:
+def _reason(status: str, code: str, **params) -> Reason:
+    return Reason(status, code, params)
+
+
+def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[Reason]:
     """Judge a tap's inductance: the circuit column (what the sweep reports) against the
     quasi-static sum, and the MoM of the end tap against the circuit. A mid tap's MoM reads high
     by NEC's junction bias (open wire continuing its path), shown in the table, not judged."""
@@ -991,131 +899,154 @@ def _inductance_verdict(sweep: SweepResult, n: int, rows) -> list[tuple[str, str
     if c_rows:
         worst = max(c_rows, key=lambda c: abs(c.rel_diff_circuit))
         d = worst.rel_diff_circuit
-        where = "L0" if worst.frequency_hz is None else f"L at {worst.frequency_hz / 1e6:.3f} MHz"
-        text = f"tap {n}: circuit-solver {where} is {d:+.1%} from the quasi-static sum"
-        if abs(d) > L_CAUTION:
-            out.append(("unreliable", text + f" (beyond {L_CAUTION:.0%})"))
-        elif abs(d) > L_OK:
-            out.append(("caution", text + f" (beyond {L_OK:.0%})"))
+        for status, limit in (("unreliable", L_CAUTION), ("caution", L_OK)):
+            if abs(d) > limit:
+                out.append(_reason(status, "circuit-inductance", tap=n, frequency_hz=worst.frequency_hz,
+                                   deviation=d, limit=limit))
+                break
     m_rows = [c for c in rows if c.quantity == "L" and c.mom is not None and c.circuit is not None]
     if m_rows and n == sweep.tap_turns[-1]:
         worst = max(m_rows, key=lambda c: abs(c.mom / c.circuit - 1))
         d = worst.mom / worst.circuit - 1
         if abs(d) > L_CAUTION:
-            out.append(("caution", f"tap {n}: MoM L at {worst.frequency_hz / 1e6:.3f} MHz is {d:+.1%} from the "
-                                   f"circuit solver's (beyond {L_CAUTION:.0%})"))
+            out.append(_reason("caution", "mom-inductance-vs-circuit", tap=n, frequency_hz=worst.frequency_hz,
+                               deviation=d, limit=L_CAUTION))
     if not c_rows:  # no circuit: the MoM against the quasi-static sum, as before
         l_rows = [c for c in rows if c.quantity in ("L0", "L") and c.rel_diff_mom is not None]
         if l_rows:
-            worst = max(l_rows, key=lambda c: abs(c.rel_diff_mom))
-            if abs(worst.rel_diff_mom) > L_CAUTION:
-                out.append(("unreliable", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
-            elif abs(worst.rel_diff_mom) > L_OK:
-                out.append(("caution", f"tap {n}: MoM L is {worst.rel_diff_mom:+.1%} from the quasi-static sum"))
+            d = max(l_rows, key=lambda c: abs(c.rel_diff_mom)).rel_diff_mom
+            for status, limit in (("unreliable", L_CAUTION), ("caution", L_OK)):
+                if abs(d) > limit:
+                    out.append(_reason(status, "mom-inductance", tap=n, deviation=d, limit=limit))
+                    break
     return out
+
+
+def _mesh_reasons(sweep: SweepResult) -> list[Reason]:
+    """The MoM mesh's rules that fail (unreliable) or warn (caution, for the rules that bias L)."""
+    out = []
+    for r in sweep.rules:
+        if r.status == "fail":
+            out.append(_reason("unreliable", "mesh-rule-fails", rule=r.key, name=r.name, detail=r.detail))
+        elif r.status == "warn" and r.key in MESH_RULES_CAUTION:
+            out.append(_reason("caution", "mesh-rule-warns", rule=r.key, name=r.name, detail=r.detail))
+    return out
+
+
+def _sweep_reasons(sweep: SweepResult) -> list[Reason]:
+    """Reciprocity of the port matrices and the top of the sweep's fit window."""
+    out = []
+    worst_asym = max((s.asymmetry for s in sweep.solves), default=0.0)
+    if worst_asym > ASYMMETRY_LIMIT:
+        out.append(_reason("unreliable", "reciprocity", defect=worst_asym, limit=ASYMMETRY_LIMIT))
+    elif worst_asym > ASYMMETRY_CAUTION:
+        out.append(_reason("caution", "reciprocity", defect=worst_asym, limit=ASYMMETRY_CAUTION))
+    srf_low = np.nanmin(sweep.self_resonance_hz) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
+    top = float(np.max(sweep.model.fit_hz))
+    if srf_low is not None and top > WINDOW_SLACK * WINDOW_TOP * srf_low:
+        out.append(_reason("caution", "fit-above-window", ratio=top / srf_low, window_top=WINDOW_TOP))
+    return out
+
+
+def _loss_reasons(n: int, rows) -> list[Reason]:
+    """MoM wire loss against the exact skin-effect loss of the tap's path."""
+    loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
+    if not loss:
+        return []
+    worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
+    if abs(worst.rel_diff_mom) <= R_LOSS_CAUTION:
+        return []
+    return [_reason("caution", "wire-loss", tap=n, deviation=worst.rel_diff_mom, frequency_hz=worst.frequency_hz)]
+
+
+def _srf_reasons(sweep: SweepResult, n: int, rows, mom_ok: bool) -> list[Reason]:
+    """Direct-MoM self-resonance against the circuit's, judged by its effect at the top of the band."""
+    srf = next((c for c in rows if c.quantity == "SRF"), None)
+    f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
+    if srf is None or not np.isfinite(f_model):
+        return []
+    if srf.mom is None:
+        first = srf.notes[0]
+        return [_reason("caution", "srf-not-found", tap=n, note_code=first.code, note_params=first.params)] \
+            if mom_ok else []
+    # An SRF misfit δ moves the model's |Z| at the top of the band by about
+    # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
+    delta = srf.mom / f_model - 1
+    x = min((sweep.frequencies_hz.max() / f_model) ** 2, SRF_X_CEILING)
+    in_band = 2 * abs(delta) * x / (1 - x)
+    if in_band <= SRF_CAUTION:
+        return []
+    return [_reason("caution", "srf-off", tap=n, srf_hz=srf.mom, deviation=delta, in_band=in_band)]
+
+
+def _power_balance_reasons(agt_rows) -> list[Reason]:
+    out = []
+    for a in agt_rows:
+        if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
+            out.append(_reason("unreliable", "power-balance-broken", tap=a.tap, deviation=a.agt - 1))
+        elif not a.accepted:
+            out.append(_reason("caution", "power-balance", tap=a.tap, deviation=a.agt - 1,
+                               accept=AGT_ACCEPT[1] - 1))
+    return out
+
+
+def _convergence_reasons(conv, plan: dict | None) -> tuple[list[Reason], list[Reason]]:
+    """(overall, per-tap) reasons from the mesh-convergence study."""
+    overall = []
+    if plan["near_srf"]:
+        overall.append(_reason("caution", "convergence-near-srf", srf_ratio=plan["srf_ratio"]))
+    per_tap = []
+    for c in conv:
+        for status, limit in (("unreliable", SPREAD_CAUTION), ("caution", SPREAD_OK)):
+            if c.inductance_spread > limit:
+                per_tap.append(_reason(status, "inductance-spread", tap=c.tap, spread=c.inductance_spread,
+                                       limit=limit))
+                break
+        if c.resistance_spread > R_SPREAD_CAUTION:
+            per_tap.append(_reason("caution", "resistance-spread", tap=c.tap, spread=c.resistance_spread))
+        if c.extrapolated_inductance_h is not None:
+            off = c.inductance_h[1] / c.extrapolated_inductance_h - 1
+            if abs(off) > L_OK:
+                per_tap.append(_reason("caution", "extrapolation", tap=c.tap, deviation=off))
+    return overall, per_tap
+
+
+_RANK = {"ok": 0, "caution": 1, "unreliable": 2}
+
+
+def _status(items) -> str:
+    return max((r.status for r in items), key=_RANK.get, default="ok")
 
 
 def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, plan: dict | None,
              mom_ok: bool = True):
-    """ok | caution | unreliable, with the reasons in words (see the README).
+    """ok | caution | unreliable, with the reasons as codes and parameters (see the README).
 
     Without a MoM (mesh too large to solve) the MoM's mesh rules, convergence and self-resonance
     bracket do not apply: the sweep's numbers come from the circuit solver alone."""
-    rank = {"ok": 0, "caution": 1, "unreliable": 2}
-    overall: list[tuple[str, str]] = []
-    per_tap: dict[int, list[tuple[str, str]]] = {n: [] for n in sweep.tap_turns}
-
-    for r in sweep.rules if mom_ok else ():
-        if r.status == "fail":
-            overall.append(("unreliable", f"mesh rule '{r.name}' fails: {r.detail}"))
-        elif r.status == "warn" and r.name in _MESH_RULES_CAUTION:
-            overall.append(("caution", f"mesh rule '{r.name}' warns: {r.detail}"))
-    worst_asym = max((s.asymmetry for s in sweep.solves), default=0.0)
-    if worst_asym > ASYMMETRY_LIMIT:
-        overall.append(("unreliable", f"port-matrix reciprocity defect {worst_asym:.1%} exceeds "
-                                      f"{ASYMMETRY_LIMIT:.0%}"))
-    elif worst_asym > ASYMMETRY_CAUTION:
-        overall.append(("caution", f"port-matrix reciprocity defect {worst_asym:.1%} (above "
-                                   f"{ASYMMETRY_CAUTION:.0%})"))
-    srf_low = np.nanmin(sweep.self_resonance_hz) if np.any(np.isfinite(sweep.self_resonance_hz)) else None
-    top = float(np.max(sweep.model.fit_hz))
-    if srf_low is not None and top > 1.05 * WINDOW_TOP * srf_low:
-        overall.append(("caution", f"the sweep fitted its model up to {top / srf_low:.2f} × self-resonance "
-                                   f"(above {WINDOW_TOP}), so its model points are less certain"))
-
+    overall = (_mesh_reasons(sweep) if mom_ok else []) + _sweep_reasons(sweep)
+    per_tap: dict[int, list[Reason]] = {n: [] for n in sweep.tap_turns}
     for n in sweep.tap_turns:
         rows = [c for c in checks if c.tap == n]
-        per_tap[n] += _inductance_verdict(sweep, n, rows)
-        loss = [c for c in rows if c.quantity == "R_loss skin" and c.rel_diff_mom is not None]
-        if loss:
-            worst = max(loss, key=lambda c: abs(c.rel_diff_mom))
-            if abs(worst.rel_diff_mom) > R_LOSS_CAUTION:
-                per_tap[n].append(("caution", f"tap {n}: MoM wire loss is {worst.rel_diff_mom:+.1%} from the "
-                                              f"exact skin-effect loss of its path at "
-                                              f"{worst.frequency_hz / 1e6:.3f} MHz"))
-        srf = next((c for c in rows if c.quantity == "SRF"), None)
-        if srf is not None and np.isfinite(sweep.self_resonance_hz[sweep.tap_turns.index(n)]):
-            f_model = sweep.self_resonance_hz[sweep.tap_turns.index(n)]
-            if srf.mom is None:
-                if mom_ok:
-                    per_tap[n].append(("caution", f"tap {n}: {srf.note.split(';')[0]}"))
-            else:
-                # An SRF misfit δ moves the model's |Z| at the top of the band by about
-                # 2δ·x/(1 − x), x = (f_stop / f_srf)²: that is what matters for tuning.
-                delta = srf.mom / f_model - 1
-                x = min((sweep.frequencies_hz.max() / f_model) ** 2, 0.99)
-                in_band = 2 * abs(delta) * x / (1 - x)
-                if in_band > SRF_CAUTION:
-                    per_tap[n].append(("caution", f"tap {n}: direct MoM self-resonance {srf.mom / 1e6:.3f} MHz is "
-                                                  f"{delta:+.1%} from the circuit solver's, which moves the sweep's "
-                                                  f"impedance at the top of the band by about {in_band:.1%}"))
-    for a in agt_rows:
-        if not AGT_BROKEN[0] <= a.agt <= AGT_BROKEN[1]:
-            per_tap[a.tap].append(("unreliable", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
-                                                 f"against accepted power): the MoM input resistance "
-                                                 f"disagrees with its own far field"))
-        elif not a.accepted:
-            per_tap[a.tap].append(("caution", f"tap {a.tap}: power balance {a.agt - 1:+.1%} (radiated "
-                                              f"against accepted power), beyond ±{AGT_ACCEPT[1] - 1:.0%}: "
-                                              f"its input resistance is "
-                                              f"inconsistent with its far field by {a.agt - 1:+.1%} (radiation "
-                                              f"resistance uncertain by that much)"))
+        per_tap[n] += _inductance_verdict(sweep, n, rows) + _loss_reasons(n, rows) \
+            + _srf_reasons(sweep, n, rows, mom_ok)
+    for r in _power_balance_reasons(agt_rows):
+        per_tap[r.params["tap"]].append(r)
     if convergence_run and conv:
-        if plan["near_srf"]:
-            overall.append(("caution", f"mesh convergence could only be compared at "
-                                       f"{plan['srf_ratio']:.2f} × self-resonance, where the spreads are "
-                                       f"less certain"))
-        for c in conv:
-            text = (f"tap {c.tap}: inductance spread {c.inductance_spread:.1%} over the coarse, sweep and "
-                    f"fine meshes")
-            if c.inductance_spread > SPREAD_CAUTION:
-                per_tap[c.tap].append(("unreliable", text + f" (beyond {SPREAD_CAUTION:.0%})"))
-            elif c.inductance_spread > SPREAD_OK:
-                per_tap[c.tap].append(("caution", text + f" (beyond {SPREAD_OK:.0%})"))
-            if c.resistance_spread > R_SPREAD_CAUTION:
-                per_tap[c.tap].append(("caution", f"tap {c.tap}: resistance spread {c.resistance_spread:.1%} "
-                                                  f"over the meshes (Q less certain)"))
-            if c.extrapolated_inductance_h is not None:
-                off = c.inductance_h[1] / c.extrapolated_inductance_h - 1
-                if abs(off) > L_OK:
-                    per_tap[c.tap].append(("caution", f"tap {c.tap}: the sweep mesh's L is {off:+.1%} from the "
-                                                      f"extrapolated zero-segment value"))
+        conv_overall, conv_taps = _convergence_reasons(conv, plan)
+        overall += conv_overall
+        for r in conv_taps:
+            per_tap[r.params["tap"]].append(r)
     elif convergence_run:
-        overall.append(("caution", "mesh convergence could not be assessed"))
-    elif not mom_ok:
-        pass  # no MoM: nothing of it to converge
-    else:
-        overall.append(("caution", "mesh convergence not checked (--no-convergence)"))
+        overall.append(_reason("caution", "convergence-not-assessed"))
+    elif mom_ok:
+        overall.append(_reason("caution", "convergence-not-checked"))
+    # (no MoM: nothing of it to converge)
 
-    def status(items):
-        return max((s for s, _ in items), key=rank.get, default="ok")
-
-    tap_verdicts = {n: Verdict(status(items), tuple(t for _, t in items)) for n, items in per_tap.items()}
+    tap_verdicts = {n: Verdict(_status(items), tuple(items)) for n, items in per_tap.items()}
     everything = overall + [x for items in per_tap.values() for x in items]
-    reasons = tuple(t for s, t in sorted(everything, key=lambda x: -rank[x[0]]))
-    st = status(everything)
+    st = _status(everything)
+    reasons = tuple(sorted(everything, key=lambda r: -_RANK[r.status]))
     if st == "ok":
-        reasons = ("every tap's inductance (circuit solver, and MoM where it runs) is within 2 % of the "
-                   "quasi-static sum, the mesh-convergence spread is below 2 %, the power balance (radiated "
-                   "over accepted power) is within ±5 % and no mesh rule warns",)
+        reasons = (_reason("ok", "all-within", inductance=L_OK, spread=SPREAD_OK, power_balance=AGT_ACCEPT[1] - 1),)
     return Verdict(st, reasons), tap_verdicts

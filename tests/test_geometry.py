@@ -125,13 +125,13 @@ def test_mesh_rules_flag_the_pitch_rule_and_the_floor():
     kw = CASES["stacked-10"]
     geom = build_loop(**kw)
     coarse = build_mesh(geom, 5 * kw["pitch_m"])
-    rules = {r.name: r.status for r in mesh_rules(coarse, geom, 520e3, 1710e3, kw["turns"])}
-    assert rules["segment <= 2 x pitch on the winding"] == "fail"
+    rules = {r.key: r.status for r in mesh_rules(coarse, geom, 520e3, 1710e3, kw["turns"])}
+    assert rules["pitch"] == "fail"
     fine = build_mesh(geom, 1.5 * kw["pitch_m"])
-    rules = {r.name: r for r in mesh_rules(fine, geom, 520e3, 1710e3, kw["turns"])}
-    assert rules["segment <= 2 x pitch on the winding"].status == "pass"
+    rules = {r.key: r for r in mesh_rules(fine, geom, 520e3, 1710e3, kw["turns"])}
+    assert rules["pitch"].status == "pass"
     # 9 mm segments at 520 kHz are 1.6e-5 wavelengths: below the 7e-5 floor
-    assert rules["low-frequency floor: segment >= 7e-5 wavelength"].status == "warn"
+    assert rules["floor"].status == "warn"
     assert fine.floor_frequency_hz() == pytest.approx(7e-5 * C0 / fine.shortest_m)
 
 
