@@ -125,7 +125,7 @@ def _lead_detail(ax, spec, geom):
     top = geom.starts[0]
     for i, n in enumerate(geom.tap_turns):
         run = np.flatnonzero((kinds == RUN) & (geom.tap == i))[0]
-        p, q = geom.starts[run], geom.ends[run]
+        p = geom.starts[run]
         depth = abs(p[2] - top[2]) if spec.winding.style == "stacked" else abs(p[1] - top[1])
         ax.text(hi[1] + 0.08 * size, p[2], f"tap {n}: {length_text(depth, sys)}",
                 va="center", ha="left", fontsize=6.5, color=tap_style(i)["color"])

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
 
 from simloop import __version__
 from simloop.report import number_or_none, write_json
