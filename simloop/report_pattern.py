@@ -7,6 +7,8 @@ importing this module never changes a notebook's matplotlib backend.
 
 from __future__ import annotations
 
+import textwrap
+
 from pathlib import Path
 
 import numpy as np
@@ -186,24 +188,45 @@ def plot_pattern(result: PatternResult, path: Path) -> Path:
         ax.set_title(f"elevation {el:g}°", fontsize=10)
         if i == 0:
             ax.legend(loc="lower left", bbox_to_anchor=(-0.1, -0.16), fontsize=7, frameon=False)
+    source = SOURCE_SHORT.get(result.models.get("loop"), result.models.get("loop"))
     fig.suptitle(f"Receive pattern at {result.frequency_hz / 1e6:.4g} MHz, {result.polarization} polarisation, "
-                 f"tap {result.tap_turns}\neach response relative to its own maximum; the loop's from "
-                 f"{SOURCE_SHORT.get(result.models.get('loop'), result.models.get('loop'))}", fontsize=10)
+                 f"tap {result.tap_turns}\n" + textwrap.fill(f"each response relative to its own maximum; "
+                                                           f"the loop's from {source}", 75), fontsize=9)
     fig.savefig(path, dpi=110)
     return path
 
 
+#: Nulls of different responses closer than this share one label. [deg]
+NULL_GROUP_DEG = 10.0
+#: A null's label sits this far round from the null, off the deep part of the curve. [deg]
+NULL_LABEL_TURN_DEG = 28.0
+#: Short names of the responses in null labels.
+LABEL_SHORT = {"loop": "loop", "receiver": "rod", "system": "loop + radio"}
+
+
 def _mark_nulls(ax, nulls, span: float) -> None:
-    for x in nulls:
+    """Mark each null on its curve; nulls of several responses at about the same azimuth share one
+    label (one line per response), set off to the side of the null so no two labels overlap."""
+    groups: list[list] = []
+    for x in sorted(nulls, key=lambda n: n.azimuth_deg):
         _, grey, _, marker = STYLES[x.of]
         r = max(x.depth_db, PLOT_FLOOR_DB) + span
-        a = np.radians(x.azimuth_deg)
-        ax.plot([a], [r], marker=marker, color=grey, mfc="white" if x.of != "loop" else grey, ms=7, ls="none")
-        text = f"{x.of} null {x.depth_db:.1f} dB" if x.depth_db > DEPTH_FLOOR_DB else f"{x.of} null: exact"
-        turn, height = {"loop": (14, 0.62), "receiver": (-14, 0.62), "system": (32, 0.30)}[x.of]
-        ax.annotate(text, (a, r), xytext=(a + np.radians(turn), height * span), fontsize=7, color=grey,
-                    ha="center", bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
-                    arrowprops={"arrowstyle": "-", "color": grey, "lw": 0.6})
+        ax.plot([np.radians(x.azimuth_deg)], [r], marker=marker, color=grey, mfc="white" if x.of != "loop" else grey,
+                ms=7, ls="none")
+        near = next((g for g in groups if abs((g[0].azimuth_deg - x.azimuth_deg + 180) % 360 - 180) < NULL_GROUP_DEG),
+                    None)
+        if near is None:
+            groups.append([x])
+        else:
+            near.append(x)
+    for g in groups:
+        a = np.radians(np.mean([x.azimuth_deg for x in g]))
+        lines = [f"{LABEL_SHORT.get(x.of, x.of)} {x.depth_db:.1f} dB" if x.depth_db > DEPTH_FLOOR_DB
+                 else f"{LABEL_SHORT.get(x.of, x.of)}: exact" for x in g]
+        ax.annotate("nulls\n" + "\n".join(lines), (a, 0.0), xytext=(a + np.radians(NULL_LABEL_TURN_DEG), 0.55 * span),
+                    fontsize=7, color="0.15", ha="center", va="center",
+                    bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "0.6", "lw": 0.5, "alpha": 0.9},
+                    arrowprops={"arrowstyle": "-", "color": "0.4", "lw": 0.6})
 
 
 def write_pattern(result: PatternResult, out: Path) -> list[Path]:
