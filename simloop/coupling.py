@@ -235,6 +235,11 @@ class CoupleResult:
 
     Arrays per tap have shape (k,), per channel (m,), per capacitor setting (c,), per distance (d,),
     maps (o, ny, nx) for the orientations in :data:`MAP_ORIENTATIONS_DEG`.
+    ``mutual_inductance_h`` and ``coupling_k`` are the low-frequency values; ``current_scale`` is
+    M(f)/M(ω → 0) at the spec's placement with the currents used (``currents_origin``),
+    ``quasi_static_scale`` the lumped 1/(1 − (f/f_srf)²) for comparison, and
+    ``interpolation_error`` the per-channel spline's largest relative error against a held-back
+    exact circuit solve (NaN without a circuit).
     """
 
     name: str
@@ -283,6 +288,7 @@ class CoupleResult:
     notes: tuple[str, ...] = field(default=())
     quasi_static_scale: float = np.nan
     interpolation_error: float = np.nan
+    imperial: bool = False
 
 
 def _db(x):
@@ -660,8 +666,9 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
     tune : simloop.tuning.TuneResult
         The channel chart: which tap and capacitance per channel.
     source : CurrentSource, optional
-        Segment currents per unit port current (a circuit solver's ``port_currents``); the
-        quasi-static currents of the wire path when None.
+        Segment currents per unit port current, used as they are at every frequency. When None:
+        the sweep's circuit solver's currents at each frequency (module notes), or, without a
+        circuit, the quasi-static currents of the wire path scaled by 1/(1 − (f/f_srf)²).
     frequency_hz : float, optional
         Frequency of the capacitor sweep, distance line and map (default: the channel nearest 1 MHz).
     tap_turns : int, optional
@@ -704,4 +711,5 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
         available_power_ratio=rho2, currents_origin=ctx.origin,
         current_scale=_current_scale(ctx, f, t, m[t]), footprint_m=ctx.footprint(), notes=tuple(notes),
         quasi_static_scale=float(ctx.srf_factor(f, t)),
-        interpolation_error=float(ctx.interpolation_error))
+        interpolation_error=float(ctx.interpolation_error),
+        imperial=bool(getattr(spec, "imperial", False)))

@@ -14,6 +14,7 @@ import numpy as np
 from simloop import __version__
 from simloop.coupling import MAP_ORIENTATIONS_DEG, NEAR_WIRE_DIAMETERS, CoupleResult
 from simloop.report import _pairs, write_json
+from simloop.units import format_length
 
 __all__ = ["couple_dict", "format_couple_summary", "write_couple"]
 
@@ -131,10 +132,16 @@ def format_couple_summary(r: CoupleResult) -> str:
     lines.append(f"at {r.frequency_hz / 1e3:.0f} kHz, tap {r.tap_turns[r.tap_index]}: critical k "
                  f"{r.critical_k:.5f}; capacitor peak {r.capacitor_width_f * 1e12:.2f} pF wide (−3 dB)"
                  + (f", {r.capacitor_width_m * 1e3:.1f} mm of slide" if np.isfinite(r.capacitor_width_m) else ""))
-    lines.append(f"optimum spacing along the loop axis: {r.optimum_spacing_m * 100:.1f} cm "
-                 f"({r.optimum_spacing_boost_db:.1f} dB)")
+    if r.imperial:
+        lines.append(f"optimum spacing along the loop axis: {format_length(r.optimum_spacing_m, True)} "
+                     f"({r.optimum_spacing_boost_db:.1f} dB)")
+    else:
+        lines.append(f"optimum spacing along the loop axis: {r.optimum_spacing_m * 100:.1f} cm "
+                     f"({r.optimum_spacing_boost_db:.1f} dB)")
     p = r.best_position_m
-    lines.append(f"best place in the table plane: x {p[0]:+.2f} m, y {p[1]:+.2f} m, rod turned "
+    where = (f"x {format_length(p[0], True)}, y {format_length(p[1], True)}" if r.imperial
+             else f"x {p[0]:+.2f} m, y {p[1]:+.2f} m")
+    lines.append(f"best place in the table plane: {where}, rod turned "
                  f"{r.best_orientation_deg:g}° from the loop axis ({r.best_boost_db:.1f} dB)")
     lines.append(_currents_note(r))
     lines += [f"note: {n}" for n in r.notes]

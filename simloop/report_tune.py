@@ -17,6 +17,7 @@ from simloop.impedance import RELIABLE_BELOW
 from simloop.report import _num, write_json
 from simloop.tuner import PlateTuner
 from simloop.tuning import RANGE_MARGIN, TuneResult
+from simloop.units import format_length
 
 __all__ = ["format_tune_summary", "tune_dict", "write_tune"]
 
@@ -167,6 +168,7 @@ def tune_dict(r: TuneResult) -> dict:
             "self_capacitance_f": _opt(r.self_capacitance_f[i]),
             "channels": int(np.sum(r.channel_tap_index == i)),
             "used_hz": _used_span(r, i),
+            "winding_to_tap_m": None if r.tap_wire_m is None else float(r.tap_wire_m[i]),
         }
     s = r.suggestion
     suggested = None if s is None else {
@@ -322,7 +324,9 @@ def format_tune_summary(r: TuneResult) -> str:
         err = max((e for e in r.coverage_error[i] if np.isfinite(e)), default=math.nan)
         span = _used_span(r, i)
         use = f"used for {_span(*span)} ({used} channels)" if span else "not used"
-        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), {use}")
+        wire = ("" if r.tap_wire_m is None else
+                f"; {format_length(float(r.tap_wire_m[i]), r.imperial)} of winding from the start")
+        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), {use}{wire}")
     if r.gaps_hz.size:
         n_gap = int(np.sum(~r.covered))
         spans = ", ".join(_span(a, b) for a, b in r.gaps_hz)

@@ -772,6 +772,8 @@ class TuneResult:
     sweep_range_hz : (float, float)
     imperial : bool
         The spec was written in inches: lengths are shown in inches and feet too.
+    tap_wire_m : ndarray, (k,), optional
+        Winding wire from the start terminal to each tap (where a builder solders it). [m]
     """
 
     name: str
@@ -793,6 +795,7 @@ class TuneResult:
     cautions: tuple[str, ...]
     notes: tuple[str, ...] = field(default=())
     imperial: bool = False
+    tap_wire_m: np.ndarray | None = None
 
     def __getattr__(self, name: str):
         if name.startswith("__") or name in ("coverage", "chart"):
@@ -1227,7 +1230,16 @@ def run_tune(spec, sweep: SweepResult, band="itu-1", field_v_per_m: float = 1e-3
         model_error=held, fit_hz=np.asarray(sweep.model.fit_hz, dtype=float),
         sweep_range_hz=(float(np.min(sweep.frequencies_hz)), float(np.max(sweep.frequencies_hz))),
         cautions=tuple(_cautions(tuner, f, ok, chart.q_loaded, chart.capacitance_f, choice, turns)),
-        notes=tuple(notes), imperial=imperial)
+        notes=tuple(notes), imperial=imperial, tap_wire_m=_tap_wire_m(sweep))
+
+
+def _tap_wire_m(sweep: SweepResult) -> np.ndarray | None:
+    """Winding wire from the start terminal to each tap, (k,). [m]"""
+    geom = getattr(sweep, "geometry", None)
+    if geom is None:
+        return None
+    winding = np.array(geom.kinds) == "winding"
+    return np.array([float(geom.lengths_m[winding & (geom.turn < n)].sum()) for n in sweep.tap_turns])
 
 
 def _cautions(tuner: Tuner, f, ok, ql, cap, choice, turns) -> list[str]:

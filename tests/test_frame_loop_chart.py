@@ -119,3 +119,19 @@ def test_frame_loop_spec_chart_full_mesh():
     assert [s[0] for s in spans] == [12, 10] and spans[-1][2] == 1700e3
     assert r2.chart.reliable.all()
     _check_switches(r2)
+
+
+def test_frame_loop_tune_prints_inches(draft_frame, capsys):
+    # The spec is written in inches ("26 1/2 in", "1/4 in"): the tap positions come back in feet
+    # and inches. Winding to tap n of a stacked rectangular winding: n turns of the perimeter
+    # 2 (32 + 26.5) in = 117 in [calc], the pitch advance adding (p/side)²/2 < 1e-4 of it.
+    from simloop.report_tune import format_tune_summary
+
+    spec, sweep = draft_frame
+    assert spec.imperial
+    r = run_tune(spec, sweep, band="itu-1")
+    for n, wire in zip(r.tap_turns, r.tap_wire_m):
+        assert wire == pytest.approx(n * 117 * 0.0254, rel=1e-4, abs=0)
+    text = format_tune_summary(r)
+    assert "78 ft (936 in, 23.77 m) of winding from the start" in text
+    assert "117 ft (1404 in, 35.66 m)" in text
