@@ -3,10 +3,13 @@ turns of 20 AWG at 1/4 in pitch, taps 8/10/12) from the circuit solver: each tap
 span, the most turns at the bottom of the band, working up (common practice for tapped frame
 loops), every channel trusted, and the chart's stated reason for each switch.
 
-The switch points are checked against the resonance of the tap's L0 and self-capacitance with
-the tuner's capacitance, f = 1/(2π√(L0 (C_s + C))) (Terman 1943, sec. 3: a coil with its
-distributed capacitance resonates as L shunted by C_s), with L0 and C_s from the sweep itself
-(computed from the formula).
+Sources: the switch points are checked against the resonance of the tap's L0 and
+self-capacitance with the tuner's capacitance, f = 1/(2π√(L0 (C_s + C))) (F. E. Terman, *Radio
+Engineers' Handbook*, 1943, sec. 3: a coil with its distributed capacitance resonates as L shunted
+by C_s), with L0 and C_s from the sweep itself (computed from the formula); the wire to each tap
+against n turns of the frame's perimeter (computed); the ITU-R Radio Regulations art. 5 channel
+rasters (itu-1: 531–1602 kHz every 9 kHz, itu-2: 530–1700 kHz every 10 kHz; published); the
+switching order is common practice.
 
 The fast variant uses a draft mesh and stops the sweep at 1640 kHz (below the MoM's floor at
 draft quality, 1.65 MHz), so the circuit gives every point and the MoM makes only its two
