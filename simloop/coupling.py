@@ -371,8 +371,11 @@ class _Context:
         The sweep's model puts the tap's self-capacitance across its port, so per ampere into the
         port the winding carries 1/(1 − (f/f_srf)²) A; its Z₁₁ includes that, so the field and the
         pickup of the same currents must too. 1 for a solver's own currents; NaN above f_srf.
+        ``self.source`` stays the quasi-static source when the circuit is used (for M and k at
+        ω → 0), so this keeps its meaning for callers that scale ``self.source``; the circuit's
+        currents (:meth:`m_v1`) need no scale.
         """
-        if self.circuit is not None or self.source.origin != "quasi-static":
+        if self.source.origin != "quasi-static":
             return np.ones_like(np.asarray(f, dtype=float))
         return self.srf_factor(f, tap)
 
@@ -389,7 +392,7 @@ class _Context:
     def m_v1(self, f, tap, positions, axes):
         """M at placements (p,) [H] and the loop tap's V_oc [V] at one frequency f, exact."""
         src = self.source_at(f)
-        a = self.scale(f, tap)
+        a = 1.0 if self.circuit is not None else self.scale(f, tap)
         m = mutual_inductance_h(src, self.rod, positions, axes)[tap] * a
         v1 = loop_open_circuit_voltage(src, self.direction, self.polarization, f)[tap] * a
         return m, v1
