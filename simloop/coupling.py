@@ -10,10 +10,18 @@ the radio's loaded Q. With the passive sign convention each port obeys V = Z I +
 * V_oc of the loop by reciprocity, −Σ I_s **E**_inc·**dl**_s over its segment currents per unit
   port current (= jωμ0 **H**·**S** for a small closed path), and of the rod jωμ0 N A Σ w_s **H**·**â**.
 
-With the quasi-static currents (unit current along the tap's path) M and the loop's V_oc are
-scaled per frequency by 1/(1 − (f/f_srf)²), the winding current per port current of the sweep's
-model (self-capacitance across the port), whose Z₁₁ is used: 1.10 at 1 MHz and 1.32 at 1.6 MHz
-for the demo loop (f_srf 3.26 MHz). A solver's own segment currents are used as they are.
+The loop's currents. When the sweep has the circuit solver (``sweep.circuit``), M and the
+loop's V_oc come from its segment currents for 1 A into each port (``solve(f).port_currents``):
+exact solves at the frequency of the single-frequency studies, and for the per-channel and
+2-port curves exact solves at :data:`CIRCUIT_NODES` log-spaced frequencies, interpolated (a
+cubic spline of M(f)·(1 − (f/f_srf)²) and V_oc(f)/f·(1 − (f/f_srf)²), which are nearly flat)
+with the interpolation error measured at one held-back exact solve. They carry what the
+circuit knows: the rise of the winding current above the port current near the self-resonance
+and its uneven share among the turns. M and k per tap are the ω → 0 values (unit current along
+the tap's path, the limit of the circuit's currents), as L0 is. Without a circuit the
+quasi-static currents (unit current along the tap's path) are scaled per frequency by
+1/(1 − (f/f_srf)²), the winding current per port current of the sweep's model (self-capacitance
+across the port), whose Z₁₁ is used. A caller's own segment currents are used as they are.
 
 Closing the ports with Z_T gives (Z + Z_T) I = −V_oc; the radio hears V = I₂/(jωC₂). Solving the
 two equations together keeps the rod's back-reaction on the loop and the loop's detuning of the
@@ -49,13 +57,16 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from simloop.errors import SpecError
-from simloop.fields import CurrentSource, h_axial, quasi_static_source
+from simloop.fields import CurrentSource, circuit_source, h_axial, quasi_static_source
 from simloop.geometry import segment_distance_m
 from simloop.receiver import ETA0, MU0, RodModel, plane_wave_h, rod_from_spec, rod_open_circuit_voltage
 
 #: The incident wave assumed for boost: arriving horizontally in the loop's plane (along +x, the
 #: loop's best direction), vertically polarised (a ground wave), so its H lies along the loop axis.
 DEFAULT_WAVE = ((1.0, 0.0, 0.0), (0.0, 0.0, 1.0))
+
+#: Exact circuit solves spanning the per-channel and 2-port curves (interpolated in between).
+CIRCUIT_NODES = 6
 
 #: Re-peaking grid for the radio's capacitor: C₂ = C₂,₀ (1 + x), x in ±30 %, then refined.
 _PEAK_SPAN, _PEAK_POINTS = 0.30, 121
@@ -224,6 +235,11 @@ class CoupleResult:
 
     Arrays per tap have shape (k,), per channel (m,), per capacitor setting (c,), per distance (d,),
     maps (o, ny, nx) for the orientations in :data:`MAP_ORIENTATIONS_DEG`.
+    ``mutual_inductance_h`` and ``coupling_k`` are the low-frequency values; ``current_scale`` is
+    M(f)/M(ω → 0) at the spec's placement with the currents used (``currents_origin``),
+    ``quasi_static_scale`` the lumped 1/(1 − (f/f_srf)²) for comparison, and
+    ``interpolation_error`` the per-channel spline's largest relative error against a held-back
+    exact circuit solve (NaN without a circuit).
     """
 
     name: str
@@ -270,6 +286,9 @@ class CoupleResult:
     current_scale: float
     footprint_m: tuple[tuple[float, float], tuple[float, float]]
     notes: tuple[str, ...] = field(default=())
+    quasi_static_scale: float = np.nan
+    interpolation_error: float = np.nan
+    imperial: bool = False
 
 
 def _db(x):
@@ -294,7 +313,12 @@ class _Context:
     def __init__(self, spec, sweep, source, wave):
         self.spec, self.sweep = spec, sweep
         self.geom = sweep.geometry
+        self.given = source
+        self.circuit = getattr(sweep, "circuit", None) if source is None else None
         self.source = source if source is not None else quasi_static_source(self.geom)
+        self._solved: dict[float, CurrentSource] = {}
+        self._curves: dict = {}
+        self.interpolation_error = np.nan
         self.rod, self.assumed = rod_from_spec(spec.receiver)
         from simloop.tuner import tuner_from_spec
 
@@ -308,6 +332,10 @@ class _Context:
             self.position = np.array([0.0, front + 0.15, self.bottom_z])
             self.axis = np.array([0.0, 1.0, 0.0])
         self.l_loop = np.asarray(sweep.inductance_h, dtype=float)
+
+    @property
+    def origin(self) -> str:
+        return "circuit" if self.circuit is not None else self.source.origin
 
     @property
     def bottom_z(self) -> float:
@@ -328,37 +356,107 @@ class _Context:
         """Capacitance that series-resonates the tap alone at f. [F]"""
         return 1.0 / (2 * np.pi * np.asarray(f) * self.z11(f, tap).imag)
 
-    def scale(self, f, tap):
-        """Winding current per port current of the quasi-static source, 1/(1 − (f/f_srf)²).
-
-        The sweep's model puts the tap's self-capacitance across its port, so per ampere into the
-        port the winding carries 1/(1 − (f/f_srf)²) A; its Z₁₁ includes that, so the field and the
-        pickup of the same currents must too. 1 for a solver's own currents; NaN above f_srf.
-        """
+    def srf_factor(self, f, tap):
+        """1/(1 − (f/f_srf)²) of the tap's measured self-resonance (NaN above it). [-]"""
         f = np.asarray(f, dtype=float)
         srf = float(np.asarray(self.sweep.self_resonance_hz)[tap])
-        if self.source.origin != "quasi-static" or not np.isfinite(srf):
+        if not np.isfinite(srf):
             return np.ones_like(f)
         with np.errstate(divide="ignore"):
             return np.where(f < srf, 1.0 / (1.0 - (f / srf) ** 2), np.nan)
 
-    def voltages(self, f, positions, axes):
-        """Loop V_oc per tap (k,), rod V_oc at each placement (p,), rod alone best-turned (p,)."""
-        v1 = loop_open_circuit_voltage(self.source, self.direction, self.polarization, f)
-        v1 = v1 * np.array([self.scale(f, i) for i in range(v1.shape[-1])])
+    def scale(self, f, tap):
+        """Winding current per port current applied to the quasi-static source, 1/(1 − (f/f_srf)²).
+
+        The sweep's model puts the tap's self-capacitance across its port, so per ampere into the
+        port the winding carries 1/(1 − (f/f_srf)²) A; its Z₁₁ includes that, so the field and the
+        pickup of the same currents must too. 1 for a solver's own currents; NaN above f_srf.
+        ``self.source`` stays the quasi-static source when the circuit is used (for M and k at
+        ω → 0), so this keeps its meaning for callers that scale ``self.source``; the circuit's
+        currents (:meth:`m_v1`) need no scale.
+        """
+        if self.source.origin != "quasi-static":
+            return np.ones_like(np.asarray(f, dtype=float))
+        return self.srf_factor(f, tap)
+
+    def source_at(self, f) -> CurrentSource:
+        """The segment currents per unit port current at f (an exact circuit solve, cached)."""
+        if self.circuit is None:
+            return self.source
+        key = float(f)
+        if key not in self._solved:
+            sol = self.circuit.solve(key)
+            self._solved[key] = circuit_source(sol.segment_starts_m, sol.segment_ends_m, sol.port_currents)
+        return self._solved[key]
+
+    def m_v1(self, f, tap, positions, axes):
+        """M at placements (p,) [H] and the loop tap's V_oc [V] at one frequency f, exact."""
+        src = self.source_at(f)
+        a = 1.0 if self.circuit is not None else self.scale(f, tap)
+        m = mutual_inductance_h(src, self.rod, positions, axes)[tap] * a
+        v1 = loop_open_circuit_voltage(src, self.direction, self.polarization, f)[tap] * a
+        return m, v1
+
+    def m_v1_curve(self, f, tap):
+        """M [H] and loop V_oc [V] at the spec's placement over frequencies f (n,).
+
+        Exact per frequency for given or quasi-static currents; for the circuit, exact solves at
+        :data:`CIRCUIT_NODES` log-spaced frequencies over the band and a spline in between (module
+        notes), its error measured at one held-back solve.
+        """
+        f = np.atleast_1d(np.asarray(f, dtype=float))
+        if self.circuit is None:
+            mv = [self.m_v1(fi, tap, self.position[None], self.axis[None]) for fi in f]
+            return np.array([m[0] for m, _ in mv]), np.array([v for _, v in mv])
+        spline = self._curve(tap)
+        flat = spline(f)
+        g = self.srf_factor(f, tap)
+        return (flat[:, 0] + 1j * flat[:, 1]) * g, (flat[:, 2] + 1j * flat[:, 3]) * g * f
+
+    def _curve_range(self):
+        lo = float(np.min(self.sweep.frequencies_hz))
+        hi = float(np.max(self.sweep.frequencies_hz))
+        return 0.95 * lo, 1.05 * hi
+
+    def _curve(self, tap):
+        from scipy.interpolate import CubicSpline
+
+        if tap in self._curves:
+            return self._curves[tap]
+        lo, hi = self._curve_range()
+        nodes = np.geomspace(lo, hi, CIRCUIT_NODES)
+        rows = [self._flat(fn, tap) for fn in nodes]
+        spline = CubicSpline(nodes, np.array(rows), axis=0)
+        f_check = float(np.sqrt(nodes[-2] * nodes[-1]))      # widest relative curvature: the top
+        exact, approx = self._flat(f_check, tap), spline(f_check)
+        err = float(max(abs(complex(*approx[:2]) / complex(*exact[:2]) - 1),
+                        abs(complex(*approx[2:]) / complex(*exact[2:]) - 1)))
+        self.interpolation_error = float(np.nanmax([self.interpolation_error, err]))
+        self._curves[tap] = spline
+        return spline
+
+    def _flat(self, f, tap):
+        """[Re, Im of M(f)/g(f), Re, Im of V_oc(f)/(f g(f))], g = 1/(1 − (f/f_srf)²)."""
+        m, v1 = self.m_v1(f, tap, self.position[None], self.axis[None])
+        g = float(self.srf_factor(f, tap))
+        g = g if np.isfinite(g) else 1.0
+        return np.array([m[0].real, m[0].imag, v1.real, v1.imag]) / np.array([g, g, g * f, g * f])
+
+    def rod_voltages(self, f, positions, axes):
+        """Rod V_oc at each placement (p,) and of the rod alone best-turned (p,)."""
         v2 = rod_open_circuit_voltage(self.rod, positions, axes, self.direction, self.polarization, f)
         h = plane_wave_h(self.direction, self.polarization, np.zeros(3), f)
         best_axis = np.real(h) / np.linalg.norm(np.real(h))
         v2b = rod_open_circuit_voltage(self.rod, positions, np.broadcast_to(best_axis, np.shape(positions)),
                                        self.direction, self.polarization, f)
-        return v1, v2, v2b
+        return v2, v2b
 
     def boost_at(self, f, tap, positions, axes, c1=None):
         """Boost [dB], pull [Hz] and M [H] at placements (p,) for tap ``tap`` at frequency f."""
-        m = mutual_inductance_h(self.source, self.rod, positions, axes)[tap] * self.scale(f, tap)
-        v1, v2, v2b = self.voltages(f, positions, axes)
+        m, v1 = self.m_v1(f, tap, positions, axes)
+        v2, v2b = self.rod_voltages(f, positions, axes)
         c1 = self.loop_c(f, tap)[0] if c1 is None else c1
-        g, pull = boost(f, self.z11(f, tap)[0], m, self.rod, c1, self.tuner.q, v1[tap], v2, v2b)
+        g, pull = boost(f, self.z11(f, tap)[0], m, self.rod, c1, self.tuner.q, v1, v2, v2b)
         return _db(g), pull, m
 
 
@@ -367,16 +465,14 @@ def _channels(ctx: _Context, tune):
     f = np.asarray(tune.frequencies_hz, dtype=float)
     taps = np.asarray(tune.channel_tap_index, dtype=int)
     out_db, pull = np.full(f.size, np.nan), np.full(f.size, np.nan)
-    v1 = loop_open_circuit_voltage(ctx.source, ctx.direction, ctx.polarization, f)     # (m, k)
     for t in np.unique(taps[taps >= 0]):
         sel = np.flatnonzero((taps == t) & np.isfinite(tune.capacitance_f))
         if sel.size == 0:
             continue
-        alpha = ctx.scale(f[sel], t)
-        m = mutual_inductance_h(ctx.source, ctx.rod, ctx.position, ctx.axis)[t, 0] * alpha
-        v2 = np.array([ctx.voltages(fi, ctx.position, ctx.axis)[1:] for fi in f[sel]])
+        m, v1 = ctx.m_v1_curve(f[sel], t)
+        v2 = np.array([ctx.rod_voltages(fi, ctx.position, ctx.axis) for fi in f[sel]])
         z11 = ctx.z11(f[sel], t)
-        g, p = boost(f[sel], z11, m, ctx.rod, tune.capacitance_f[sel], ctx.tuner.q, v1[sel, t] * alpha,
+        g, p = boost(f[sel], z11, m, ctx.rod, tune.capacitance_f[sel], ctx.tuner.q, v1,
                      v2[:, 0], v2[:, 1])
         out_db[sel], pull[sel] = _db(g), p
     return f, taps, out_db, pull
@@ -483,12 +579,19 @@ def two_port_z(ctx: _Context, tap: int, frequencies_hz) -> np.ndarray:
     """Z of the loop-tap–rod-coil 2-port (no tuning capacitors), shape (n, 2, 2). [Ω]"""
     f = np.asarray(frequencies_hz, dtype=float)
     w = 2 * np.pi * f
-    m = mutual_inductance_h(ctx.source, ctx.rod, ctx.position, ctx.axis)[tap, 0]
+    m, _ = ctx.m_v1_curve(f, tap)
     z = np.empty((f.size, 2, 2), dtype=complex)
     z[:, 0, 0] = ctx.z11(f, tap)
     z[:, 1, 1] = ctx.rod.series_resistance_ohm(f) + 1j * w * ctx.rod.inductance_h
-    z[:, 0, 1] = z[:, 1, 0] = 1j * w * m * ctx.scale(f, tap)
+    z[:, 0, 1] = z[:, 1, 0] = 1j * w * m
     return z
+
+
+def _current_scale(ctx: _Context, f, tap, m0) -> float:
+    """M(f)/M(ω → 0) at the spec's placement: the winding current per port current as the rod
+    sees it (1/(1 − (f/f_srf)²) for the quasi-static currents). [-]"""
+    m, _ = ctx.m_v1(f, tap, ctx.position[None], ctx.axis[None])
+    return float(np.real(m[0]) / m0) if m0 != 0 else float("nan")
 
 
 def _placement_problem(ctx: _Context):
@@ -502,11 +605,12 @@ def _placement_problem(ctx: _Context):
 
 def _available_ratio(ctx: _Context, f, tap):
     """ρ² (available powers, loop over rod) and the critical coupling 1/√(Q₁Q₂) at the spec's placement."""
-    v1, v2, _ = ctx.voltages(f, ctx.position[None], ctx.axis[None])
+    _, v1 = ctx.m_v1(f, tap, ctx.position[None], ctx.axis[None])
+    v2, _ = ctx.rod_voltages(f, ctx.position[None], ctx.axis[None])
     z = ctx.z11(f, tap)[0]
     r1 = z.real + 1 / (2 * np.pi * f * ctx.loop_c(f, tap)[0] * ctx.tuner.q)
     r2 = float(ctx.rod.series_resistance_ohm(f))
-    rho2 = float((abs(v1[tap]) ** 2 / r1) / (abs(v2[0]) ** 2 / r2))
+    rho2 = float((abs(v1) ** 2 / r1) / (abs(v2[0]) ** 2 / r2))
     return rho2, 1 / np.sqrt(_q_loop(ctx, f, tap) * ctx.rod.loaded_q)
 
 
@@ -565,8 +669,9 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
     tune : simloop.tuning.TuneResult
         The channel chart: which tap and capacitance per channel.
     source : CurrentSource, optional
-        Segment currents per unit port current (a circuit solver's ``port_currents``); the
-        quasi-static currents of the wire path when None.
+        Segment currents per unit port current, used as they are at every frequency. When None:
+        the sweep's circuit solver's currents at each frequency (module notes), or, without a
+        circuit, the quasi-static currents of the wire path scaled by 1/(1 − (f/f_srf)²).
     frequency_hz : float, optional
         Frequency of the capacitor sweep, distance line and map (default: the channel nearest 1 MHz).
     tap_turns : int, optional
@@ -606,5 +711,8 @@ def run_couple(spec, sweep, tune, *, source: CurrentSource | None = None, freque
         best_orientation_deg=MAP_ORIENTATIONS_DEG[o], best_boost_db=float(map_db[o, iy, ix]),
         s_frequencies_hz=np.asarray(sweep.frequencies_hz, dtype=float),
         s_z_ohm=two_port_z(ctx, t, sweep.frequencies_hz), critical_k=float(kc),
-        available_power_ratio=rho2, currents_origin=ctx.source.origin,
-        current_scale=float(ctx.scale(f, t)), footprint_m=ctx.footprint(), notes=tuple(notes))
+        available_power_ratio=rho2, currents_origin=ctx.origin,
+        current_scale=_current_scale(ctx, f, t, m[t]), footprint_m=ctx.footprint(), notes=tuple(notes),
+        quasi_static_scale=float(ctx.srf_factor(f, t)),
+        interpolation_error=float(ctx.interpolation_error),
+        imperial=bool(getattr(spec, "imperial", False)))

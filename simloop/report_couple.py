@@ -14,6 +14,7 @@ import numpy as np
 from simloop import __version__
 from simloop.coupling import MAP_ORIENTATIONS_DEG, NEAR_WIRE_DIAMETERS, CoupleResult
 from simloop.report import _pairs, write_json
+from simloop.units import format_length
 
 __all__ = ["couple_dict", "format_couple_summary", "write_couple"]
 
@@ -55,6 +56,7 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
         "mutual_inductance_h": r.mutual_inductance_h.tolist(),
         "coupling_k": r.coupling_k.tolist(),
         "currents": r.currents_origin,
+        "currents_note": _currents_note(r),
         "receiver": _rod_dict(r),
         "wave": {"direction": r.wave_direction.tolist(), "polarization": r.wave_polarization.tolist()},
         "frequencies_hz": r.frequencies_hz.tolist(),
@@ -66,6 +68,8 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
             "loop_capacitance_f": r.loop_capacitance_f,
             "critical_k": r.critical_k, "available_power_ratio": r.available_power_ratio,
             "winding_current_per_port_current": r.current_scale,
+            "quasi_static_current_scale": _opt(r.quasi_static_scale),
+            "curve_interpolation_error": _opt(r.interpolation_error),
             "capacitor_f": r.capacitor_f.tolist(), "capacitor_boost_db": r.capacitor_boost_db.tolist(),
             "capacitor_peak_width_f": r.capacitor_width_f,
             "capacitor_peak_width_travel_m": r.capacitor_width_m,
@@ -128,13 +132,40 @@ def format_couple_summary(r: CoupleResult) -> str:
     lines.append(f"at {r.frequency_hz / 1e3:.0f} kHz, tap {r.tap_turns[r.tap_index]}: critical k "
                  f"{r.critical_k:.5f}; capacitor peak {r.capacitor_width_f * 1e12:.2f} pF wide (−3 dB)"
                  + (f", {r.capacitor_width_m * 1e3:.1f} mm of slide" if np.isfinite(r.capacitor_width_m) else ""))
-    lines.append(f"optimum spacing along the loop axis: {r.optimum_spacing_m * 100:.1f} cm "
-                 f"({r.optimum_spacing_boost_db:.1f} dB)")
+    if r.imperial:
+        lines.append(f"optimum spacing along the loop axis: {format_length(r.optimum_spacing_m, True)} "
+                     f"({r.optimum_spacing_boost_db:.1f} dB)")
+    else:
+        lines.append(f"optimum spacing along the loop axis: {r.optimum_spacing_m * 100:.1f} cm "
+                     f"({r.optimum_spacing_boost_db:.1f} dB)")
     p = r.best_position_m
-    lines.append(f"best place in the table plane: x {p[0]:+.2f} m, y {p[1]:+.2f} m, rod turned "
+    where = (f"x {format_length(p[0], True)}, y {format_length(p[1], True)}" if r.imperial
+             else f"x {p[0]:+.2f} m, y {p[1]:+.2f} m")
+    lines.append(f"best place in the table plane: {where}, rod turned "
                  f"{r.best_orientation_deg:g}° from the loop axis ({r.best_boost_db:.1f} dB)")
+    lines.append(_currents_note(r))
     lines += [f"note: {n}" for n in r.notes]
     return "\n".join(lines)
+
+
+def _opt(x):
+    return float(x) if x is not None and np.isfinite(x) else None
+
+
+def _currents_note(r: CoupleResult) -> str:
+    """Where the loop's currents came from, and what they do at the single-frequency studies."""
+    at = (f"at {r.frequency_hz / 1e3:.0f} kHz the winding carries {r.current_scale:.3f} A per ampere "
+          f"into tap {r.tap_turns[r.tap_index]}")
+    if r.currents_origin == "circuit":
+        interp = (f"; per channel interpolated between exact solves (error {r.interpolation_error:.1e})"
+                  if np.isfinite(r.interpolation_error) else "")
+        return (f"loop currents from the circuit solver: {at} as the rod sees it (a uniform current "
+                f"with the self-capacitance across the port would give {r.quasi_static_scale:.3f})"
+                f"{interp}; M and k are the low-frequency values")
+    if r.currents_origin == "quasi-static":
+        return (f"loop currents quasi-static (uniform along the tap's path, scaled by the "
+                f"self-resonance): {at}")
+    return f"loop currents from the caller ({r.currents_origin}): {at}"
 
 
 def _figure(**kw):

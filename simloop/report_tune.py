@@ -17,6 +17,7 @@ from simloop.impedance import RELIABLE_BELOW
 from simloop.report import _num, write_json
 from simloop.tuner import PlateTuner
 from simloop.tuning import RANGE_MARGIN, TuneResult
+from simloop.units import format_length
 
 __all__ = ["format_tune_summary", "tune_dict", "write_tune"]
 
@@ -105,17 +106,40 @@ def chart_selection(r: TuneResult, rows: int = 24) -> np.ndarray:
 def _model_error_dict(r: TuneResult) -> dict:
     h = r.model_error
     if h is None:
-        return {"held_back_hz": [], "max_relative_error": None, "relative_error": None,
-                "note": "no direct MoM point outside the fit window in this sweep; nothing to "
-                        "compare the model with (none is invented)"}
-    taps = {str(n): _opt(h.max_relative_error[i]) for i, n in enumerate(r.tap_turns)}
+        return {"circuit": None, "mom": None,
+                "note": "no exact solve outside the fit window in this sweep; nothing to compare "
+                        "the model with (none is invented)"}
+    return {"circuit": _circuit_error_dict(r, h), "mom": _mom_error_dict(r, h)}
+
+
+def _circuit_error_dict(r: TuneResult, h) -> dict | None:
+    if not h.circuit_hz.size:
+        return None
+    taps = list(enumerate(r.tap_turns))
+    return {
+        "quantity": "|Z_ii model − Z_ii circuit| / |Z_ii circuit| and |R_ii model − R_ii circuit| / "
+                    "R_ii circuit, both with the proximity loss (the model tune uses against exact "
+                    "circuit solves it was not fitted to)",
+        "held_back_hz": [float(f) for f in h.circuit_hz],
+        "max_relative_error": {str(n): _opt(h.circuit_max_relative_error[i]) for i, n in taps},
+        "max_resistance_error": {str(n): _opt(h.circuit_max_resistance_error[i]) for i, n in taps},
+        "relative_error": {str(n): [float(e) for e in h.circuit_relative_error[:, i]] for i, n in taps},
+        "resistance_error": {str(n): [float(e) for e in h.circuit_resistance_error[:, i]] for i, n in taps},
+        "relative_to_fit": h.circuit_relative_to_fit,
+    }
+
+
+def _mom_error_dict(r: TuneResult, h) -> dict | None:
+    if not (h.frequencies_hz.size or h.excluded_hz.size):
+        return None
+    taps = list(enumerate(r.tap_turns))
     return {
         "quantity": "|Z_ii model − Z_ii MoM| / |Z_ii MoM|, model without the proximity correction",
         "held_back_hz": [float(f) for f in h.frequencies_hz],
-        "max_relative_error": taps if h.frequencies_hz.size else None,
-        "relative_error": {str(n): [float(e) for e in h.relative_error[:, i]] for i, n in enumerate(r.tap_turns)},
-        "mom_error_estimate": {str(n): [float(e) for e in h.mom_error_estimate[:, i]]
-                               for i, n in enumerate(r.tap_turns)},
+        "max_relative_error": ({str(n): _opt(h.max_relative_error[i]) for i, n in taps}
+                               if h.frequencies_hz.size else None),
+        "relative_error": {str(n): [float(e) for e in h.relative_error[:, i]] for i, n in taps},
+        "mom_error_estimate": {str(n): [float(e) for e in h.mom_error_estimate[:, i]] for i, n in taps},
         "excluded_hz": [float(f) for f in h.excluded_hz],
         "inside_fit_span": h.inside_fit_span,
         "relative_to_fit": h.relative_to_fit,
@@ -144,6 +168,7 @@ def tune_dict(r: TuneResult) -> dict:
             "self_capacitance_f": _opt(r.self_capacitance_f[i]),
             "channels": int(np.sum(r.channel_tap_index == i)),
             "used_hz": _used_span(r, i),
+            "winding_to_tap_m": None if r.tap_wire_m is None else float(r.tap_wire_m[i]),
         }
     s = r.suggestion
     suggested = None if s is None else {
@@ -299,7 +324,9 @@ def format_tune_summary(r: TuneResult) -> str:
         err = max((e for e in r.coverage_error[i] if np.isfinite(e)), default=math.nan)
         span = _used_span(r, i)
         use = f"used for {_span(*span)} ({used} channels)" if span else "not used"
-        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), {use}")
+        wire = ("" if r.tap_wire_m is None else
+                f"; {format_length(float(r.tap_wire_m[i]), r.imperial)} of winding from the start")
+        lines.append(f"  tap {n:>3}: covers {_span(lo, hi)} (±{err:.1%}), {use}{wire}")
     if r.gaps_hz.size:
         n_gap = int(np.sum(~r.covered))
         spans = ", ".join(_span(a, b) for a, b in r.gaps_hz)
@@ -337,7 +364,12 @@ def format_tune_summary(r: TuneResult) -> str:
                      f"tuner ({_khz(f[j])} kHz), capacitor current up to "
                      f"{np.nanmax(r.current_a[ok]) * 1e6:.3g} µA")
     h = r.model_error
-    if h is None:
+    if h is not None and h.circuit_hz.size:
+        errs = ", ".join(f"tap {n} {h.circuit_max_relative_error[i]:.2%} (R {h.circuit_max_resistance_error[i]:.1%})"
+                         for i, n in enumerate(r.tap_turns))
+        lines.append(f"lumped model vs exact circuit solves at {h.circuit_hz.size} held-back frequencies "
+                     f"({_span(h.circuit_hz.min(), h.circuit_hz.max())}): max |Z| error {errs}")
+    if h is None or not (h.frequencies_hz.size or h.excluded_hz.size):
         lines.append("model vs MoM at held-back points: none in this sweep")
     elif h.frequencies_hz.size:
         errs = ", ".join(f"tap {n} {h.max_relative_error[i]:.2%}" for i, n in enumerate(r.tap_turns))

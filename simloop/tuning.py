@@ -1,9 +1,10 @@
 r"""Tuning a tapped loop: band coverage per tap, the channel chart, bandwidth and tuner voltage.
 
-Everything here is evaluated on the loop model fitted to the MoM solves
-(:meth:`simloop.impedance.SweepResult.model_z`, the matrix form of the 1/L_app fit), never by
-re-running the MoM per channel; how far that model is from the MoM at direct solves it was not
-fitted to is reported beside the results (:func:`held_back_error`).
+Everything here is evaluated on the lumped loop model fitted to exact circuit solves
+(:meth:`simloop.impedance.SweepResult.model_z`, the matrix form of the 1/L_app fit, with the
+proximity loss), never by re-solving per channel; how far that model is from exact circuit solves
+at held-back frequencies across the band, and from direct MoM solves it was not fitted to, is
+reported beside the results (:func:`held_back_error`).
 
 The circuit
 -----------
@@ -330,21 +331,31 @@ def coverage(z_of_f, c_min_f, c_max_f, f_lo_hz=F_MIN_HZ, f_hi_hz=F_MAX_HZ):
 
 
 # --------------------------------------------------------------------------------------------
-# Model error at held-back MoM points
+# Model error at held-back points: exact circuit solves and direct MoM solves
 # --------------------------------------------------------------------------------------------
+
+#: The lumped model is compared with exact circuit solves at the geometric midpoints of this many
+#: log-spaced intervals over the band and at its two ends (any that is a fit frequency left out).
+HELD_BACK_POINTS = 7
+
 
 @dataclass(frozen=True)
 class HeldBackError:
-    """The fitted model against direct MoM solves it was not fitted to.
+    """The lumped model tune uses against exact solves it was not fitted to.
+
+    Two comparisons: with exact circuit solves at held-back frequencies across the band (the
+    model with its proximity loss, as tune uses it, against the circuit with the same loss), and
+    with the sweep's direct MoM points that were not fitted (the model without the proximity
+    correction, since NEC has none).
 
     Attributes
     ----------
     frequencies_hz : ndarray, shape (p,)
-        Held-back points used (direct MoM, trusted, not among the fit frequencies). [Hz]
+        Held-back MoM points used (direct MoM, trusted, not among the fit frequencies). [Hz]
     relative_error : ndarray, shape (p, k)
         |Z_ii,model − Z_ii,MoM| / |Z_ii,MoM| (model without the proximity correction). [-]
     max_relative_error : ndarray, shape (k,)
-        Largest of those per tap. [-]
+        Largest of those per tap (NaN without points). [-]
     mom_error_estimate : ndarray, shape (p, k)
         The sweep's own error estimate of those MoM points (large near the self-resonance, where
         the comparison then says little). [-]
@@ -352,12 +363,18 @@ class HeldBackError:
         Held-back MoM points left out because they lie below the mesh's trusted floor (solved
         with ``--direct`` in the low-frequency breakdown: the MoM itself is wrong there). [Hz]
     inside_fit_span : bool
-        True when every point used lies between the lowest and highest fit frequency: then the
-        check tests the fit between its points, not its extrapolation to lower frequencies.
+        True when every MoM point used lies between the lowest and highest fit frequency.
     relative_to_fit : str
-        Where the points lie against the fit window: "inside", "above", "below" or "mixed"
-        ("none" without points). The band below the window is reached only by extrapolating
-        downwards, which only points "below" test.
+        Where the MoM points lie against the fit window: "inside", "above", "below" or "mixed"
+        ("none" without points).
+    circuit_hz : ndarray, shape (c,)
+        Held-back frequencies of the exact circuit solves (none without a circuit). [Hz]
+    circuit_relative_error : ndarray, shape (c, k)
+        |Z_ii,model − Z_ii,circuit| / |Z_ii,circuit|, both with the proximity loss. [-]
+    circuit_resistance_error : ndarray, shape (c, k)
+        |R_ii,model − R_ii,circuit| / R_ii,circuit: what the loaded Q rests on. [-]
+    circuit_relative_to_fit : str
+        Where the circuit points lie against the fit window (as ``relative_to_fit``).
     """
 
     frequencies_hz: np.ndarray
@@ -367,38 +384,98 @@ class HeldBackError:
     excluded_hz: np.ndarray
     inside_fit_span: bool
     relative_to_fit: str = "none"
+    circuit_hz: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    circuit_relative_error: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    circuit_resistance_error: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    circuit_relative_to_fit: str = "none"
+
+    @property
+    def circuit_max_relative_error(self) -> np.ndarray:
+        """Largest |Z| error against the circuit per tap, (k,) (NaN without points). [-]"""
+        e = self.circuit_relative_error
+        return e.max(axis=0) if e.size else np.full(e.shape[1], np.nan)
+
+    @property
+    def circuit_max_resistance_error(self) -> np.ndarray:
+        """Largest resistance error against the circuit per tap, (k,). [-]"""
+        e = self.circuit_resistance_error
+        return e.max(axis=0) if e.size else np.full(e.shape[1], np.nan)
 
 
-def held_back_error(sweep: SweepResult) -> HeldBackError | None:
-    """Compare the fitted model with the sweep's direct MoM points that were not fitted.
+def _where(fh: np.ndarray, fit: np.ndarray) -> str:
+    if fh.size == 0:
+        return "none"
+    below = fh < fit.min() * (1 - 1e-9)
+    above = fh > fit.max() * (1 + 1e-9)
+    if not np.any(below | above):
+        return "inside"
+    return "above" if np.all(above) else "below" if np.all(below) else "mixed"
 
-    Returns None when the sweep has no such point (the model then rests on its fit alone; never
-    invent one). Points below the mesh's trusted floor (the breakdown region, solved only with
-    ``--direct``) are excluded and listed in ``excluded_hz``.
+
+def _fit_hz(sweep: SweepResult) -> np.ndarray:
+    model = sweep.model_proximity if getattr(sweep, "model_proximity", None) is not None else sweep.model
+    return np.asarray(model.fit_hz, dtype=float)
+
+
+def _circuit_check(sweep: SweepResult, band_hz) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Held-back frequencies (c,), |Z| errors (c, k) and R errors (c, k) against exact circuit
+    solves over ``band_hz`` (:data:`HELD_BACK_POINTS`; fit frequencies left out)."""
+    k = len(sweep.tap_turns)
+    if getattr(sweep, "circuit", None) is None:
+        return np.zeros(0), np.zeros((0, k)), np.zeros((0, k))
+    lo, hi = (float(band_hz[0]), float(band_hz[1])) if band_hz is not None else (
+        float(np.min(sweep.frequencies_hz)), float(np.max(sweep.frequencies_hz)))
+    fit = _fit_hz(sweep)
+    grid = np.geomspace(lo, hi, HELD_BACK_POINTS + 1)
+    fh = np.concatenate([[lo], np.sqrt(grid[:-1] * grid[1:]), [hi]])   # midpoints and the ends
+    fh = fh[[not np.any(np.abs(fit - x) <= 1e-6 * x) for x in fh]]
+    idx = np.arange(k)
+    z_ex = np.array([sweep.circuit.solve(f).z_ohm[idx, idx] for f in fh]).reshape(-1, k)
+    z_mod = sweep.model_z(fh, proximity=True)[:, idx, idx]
+    rel = np.abs(z_mod - z_ex) / np.abs(z_ex)
+    r_rel = np.abs(z_mod.real - z_ex.real) / np.abs(z_ex.real)
+    return fh, rel, r_rel
+
+
+def held_back_error(sweep: SweepResult, band_hz=None) -> HeldBackError | None:
+    """Compare tune's lumped model with exact circuit solves and direct MoM points it was not
+    fitted to.
+
+    Parameters
+    ----------
+    sweep : SweepResult
+    band_hz : (float, float), optional
+        Span of the circuit comparison (default: the sweep's range). [Hz]
+
+    Returns None only when the sweep has neither a circuit nor an unfitted MoM point (the model
+    then rests on its fit alone; never invent one). MoM points below the mesh's trusted floor
+    (the breakdown region, solved only with ``--direct``) are excluded and listed in
+    ``excluded_hz``.
     """
     f = np.asarray(sweep.frequencies_hz, dtype=float)
+    k = len(sweep.tap_turns)
     fit = np.asarray(sweep.model.fit_hz, dtype=float)
     mom = np.asarray(sweep.source) == "mom"
     fitted = np.array([np.any(np.abs(fit - x) <= 1e-9 * x) for x in f], dtype=bool)
     held = mom & ~fitted
-    if not np.any(held):
+    ch, c_rel, c_r = _circuit_check(sweep, band_hz)
+    if not np.any(held) and ch.size == 0:
         return None
+    circuit = dict(circuit_hz=ch, circuit_relative_error=c_rel, circuit_resistance_error=c_r,
+                   circuit_relative_to_fit=_where(ch, _fit_hz(sweep)))
     trusted = held & (f >= sweep.mesh.floor_frequency_hz() * (1 - 1e-9))
     excluded = f[held & ~trusted]
-    k = len(sweep.tap_turns)
     if not np.any(trusted):
         return HeldBackError(np.array([]), np.zeros((0, k)), np.full(k, np.nan), np.zeros((0, k)),
-                             excluded, False)
+                             excluded, False, **circuit)
     fh = f[trusted]
     idx = np.arange(k)
     z_mom = sweep.z_ohm[trusted][:, idx, idx]
     z_mod = sweep.model_z(fh, proximity=False)[:, idx, idx]
     rel = np.abs(z_mod - z_mom) / np.abs(z_mom)
-    below = fh < fit.min() * (1 - 1e-9)
-    above = fh > fit.max() * (1 + 1e-9)
-    inside = bool(not np.any(below | above))
-    where = "inside" if inside else ("above" if np.all(above) else "below" if np.all(below) else "mixed")
-    return HeldBackError(fh, rel, rel.max(axis=0), sweep.error_estimate[trusted], excluded, inside, where)
+    where = _where(fh, fit)
+    return HeldBackError(fh, rel, rel.max(axis=0), sweep.error_estimate[trusted], excluded,
+                         where == "inside", where, **circuit)
 
 
 # --------------------------------------------------------------------------------------------
@@ -695,6 +772,8 @@ class TuneResult:
     sweep_range_hz : (float, float)
     imperial : bool
         The spec was written in inches: lengths are shown in inches and feet too.
+    tap_wire_m : ndarray, (k,), optional
+        Winding wire from the start terminal to each tap (where a builder solders it). [m]
     """
 
     name: str
@@ -716,6 +795,7 @@ class TuneResult:
     cautions: tuple[str, ...]
     notes: tuple[str, ...] = field(default=())
     imperial: bool = False
+    tap_wire_m: np.ndarray | None = None
 
     def __getattr__(self, name: str):
         if name.startswith("__") or name in ("coverage", "chart"):
@@ -1042,14 +1122,18 @@ def _coverage(spec, sweep: SweepResult, tuner: Tuner, f: np.ndarray, turns) -> C
 def _model_notes(sweep: SweepResult, held: HeldBackError | None, outside: np.ndarray) -> list[str]:
     notes = []
     if held is None:
-        notes.append("no direct MoM point outside the fit window in this sweep: the model's error "
-                     "rests on the sweep's error estimate alone (run the sweep higher, above "
-                     f"{sweep.mesh.floor_frequency_hz() / 1e6:.2f} MHz, to get held-back points)")
-    elif held.relative_to_fit in ("inside", "above"):
-        notes.append(f"the held-back MoM points lie {held.relative_to_fit} the fit window "
-                     f"({held.frequencies_hz.min() / 1e6:.3g}–{held.frequencies_hz.max() / 1e6:.3g} MHz against "
-                     f"{sweep.model.fit_hz.min() / 1e6:.3g}–{sweep.model.fit_hz.max() / 1e6:.3g} MHz): they do "
-                     "not test the model's extrapolation down to the band's lower channels")
+        notes.append("no exact solve outside the fit window in this sweep: the lumped model's error "
+                     "rests on the sweep's error estimate alone")
+    else:
+        worst = held.circuit_max_relative_error
+        if worst.size and np.nanmax(worst) >= RELIABLE_BELOW:
+            notes.append(f"the lumped model is {np.nanmax(worst):.1%} from exact circuit solves at "
+                         f"held-back frequencies: its channels are less certain than the sweep's points")
+        if held.frequencies_hz.size and held.relative_to_fit in ("inside", "above"):
+            notes.append(f"the held-back MoM points lie {held.relative_to_fit} the fit window "
+                         f"({held.frequencies_hz.min() / 1e6:.3g}–{held.frequencies_hz.max() / 1e6:.3g} MHz "
+                         f"against {sweep.model.fit_hz.min() / 1e6:.3g}–{sweep.model.fit_hz.max() / 1e6:.3g} "
+                         "MHz): they do not test the model's extrapolation down to the band's lower channels")
     if np.any(outside):
         notes.append(f"{int(outside.sum())} channels lie above the sweep "
                      f"({float(np.max(sweep.frequencies_hz)) / 1e3:.0f} kHz): their model points are not trusted")
@@ -1130,7 +1214,7 @@ def run_tune(spec, sweep: SweepResult, band="itu-1", field_v_per_m: float = 1e-3
     for i in range(len(turns)):
         c_curve[_first_branch(c_curve[:, i]):, i] = np.nan
 
-    held = held_back_error(sweep)
+    held = held_back_error(sweep, (float(f[0]), float(f[-1])))
     notes += _model_notes(sweep, held, grid.outside)
     notes += _chart_notes(chart, cov, turns)
     ok = choice >= 0
@@ -1146,7 +1230,16 @@ def run_tune(spec, sweep: SweepResult, band="itu-1", field_v_per_m: float = 1e-3
         model_error=held, fit_hz=np.asarray(sweep.model.fit_hz, dtype=float),
         sweep_range_hz=(float(np.min(sweep.frequencies_hz)), float(np.max(sweep.frequencies_hz))),
         cautions=tuple(_cautions(tuner, f, ok, chart.q_loaded, chart.capacitance_f, choice, turns)),
-        notes=tuple(notes), imperial=imperial)
+        notes=tuple(notes), imperial=imperial, tap_wire_m=_tap_wire_m(sweep))
+
+
+def _tap_wire_m(sweep: SweepResult) -> np.ndarray | None:
+    """Winding wire from the start terminal to each tap, (k,). [m]"""
+    geom = getattr(sweep, "geometry", None)
+    if geom is None:
+        return None
+    winding = np.array(geom.kinds) == "winding"
+    return np.array([float(geom.lengths_m[winding & (geom.turn < n)].sum()) for n in sweep.tap_turns])
 
 
 def _cautions(tuner: Tuner, f, ok, ql, cap, choice, turns) -> list[str]:
