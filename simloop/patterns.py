@@ -690,8 +690,9 @@ def system_model(ctx, frequency_hz: float, tap: int, zii: complex, loop_c_f: flo
 
     f = float(frequency_hz)
     w = 2 * np.pi * f
-    m_h = float(np.real(mutual_inductance_h(ctx.source, ctx.rod, ctx.position, ctx.axis)[tap, 0]
-                        * ctx.scale(f, tap)))
+    # M at this frequency from the loop's own currents (the circuit solver's, exact, when the sweep
+    # has one; else the quasi-static path scaled by the winding current per port current)
+    m_h = float(np.real(ctx.m_v1(f, tap, ctx.position[None], ctx.axis[None])[0][0]))
     z22 = complex(ctx.rod.series_resistance_ohm(f) + 1j * w * ctx.rod.inductance_h)
     zt1 = 1 / (1j * w * loop_c_f) + 1 / (w * loop_c_f * q_cap)
     c2_exact = float(ctx.rod.tuning_capacitance_f(f))

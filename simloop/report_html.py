@@ -605,20 +605,24 @@ def section_assumptions(result) -> str:
     if t is not None:
         items.append(f"Tuner voltage and current are for an incident field of {t.field_v_per_m * 1e3:g} mV/m "
                      "arriving in the loop's plane.")
-        if t.model_error is not None and t.model_error.frequencies_hz.size:
-            worst = float(np.max(t.model_error.max_relative_error))
-            items.append(f"The fitted model differs from direct MoM solves it was not fitted to by at most "
-                         f"{worst:.2%} (|Z|).")
+        h = t.model_error
+        if h is not None and np.size(h.circuit_hz):
+            items.append(f"The lumped model the channel chart interpolates with differs from exact circuit "
+                         f"solves it was not fitted to by at most {float(np.max(h.circuit_max_relative_error)):.2%} "
+                         f"in |Z|.")
+        if h is not None and h.frequencies_hz.size:
+            items.append(f"It differs from direct MoM solves it was not fitted to by at most "
+                         f"{float(np.max(h.max_relative_error)):.2%} in |Z|.")
     if result.couple is not None:
-        items.append("Boost and placement: the loop's currents are the quasi-static ones of its wire path, "
-                     "scaled by the sweep model's winding current per port current; the ferrite rod is an "
+        items.append("Boost and placement: the loop's currents are the circuit solver's (exact solves at the "
+                     "study frequency, a spline through a few exact solves across the band); the ferrite rod is an "
                      "analytic model (fluxmetric demagnetisation, Chen, Brug & Goldfarb 1991); the radio's "
                      "case, a hand and the table are not modelled; the wave arrives in the loop's plane, "
                      "vertically polarised.")
     if result.pattern is not None:
-        items.append("Patterns: by reciprocity from the far field of one MoM solve at the pattern frequency; "
-                     "the null causes come from the loop's fitted magnetic and electric dipole moments (free "
-                     "space only).")
+        items.append("Patterns: by reciprocity from the far field of one MoM solve at the pattern frequency "
+                     "where the MoM is trusted, else (free space) from the circuit solver's magnetic and electric "
+                     "dipole moments; the null causes come from those dipole moments.")
     if sw.window_note:
         items.append(esc(sw.window_note))
     return "<ul>" + "".join(f"<li>{x}</li>" for x in items) + "</ul>"

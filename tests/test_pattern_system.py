@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from simloop import patterns as P
-from simloop.coupling import loop_open_circuit_voltage, radio_voltage
+from simloop.coupling import loop_open_circuit_voltage, mutual_inductance_h, radio_voltage
 from simloop.fields import CurrentSource
 from simloop.mesh import C0
 from simloop.receiver import DEFAULT_RECEIVER, MU0, build_rod
@@ -44,8 +44,11 @@ def clean_loop():
 def _system(clean_loop, distance_m, beta_deg, repeak=False):
     pff, src, zii, cap = clean_loop
     b = np.radians(beta_deg)
-    ctx = types.SimpleNamespace(source=src, rod=build_rod(**DEFAULT_RECEIVER), position=np.array([0.0, distance_m, 0.0]),
-                                axis=np.array([np.sin(b), np.cos(b), 0.0]), assumed=False, scale=lambda f, t: 1.0)
+    rod_model = build_rod(**DEFAULT_RECEIVER)
+    # a context with given currents, as simloop.coupling's: M from them unscaled (no V_oc needed)
+    ctx = types.SimpleNamespace(source=src, rod=rod_model, position=np.array([0.0, distance_m, 0.0]),
+                                axis=np.array([np.sin(b), np.cos(b), 0.0]), assumed=False, scale=lambda f, t: 1.0,
+                                m_v1=lambda f, tap, pos, ax: (mutual_inductance_h(src, rod_model, pos, ax)[tap], None))
     rod = P.rod_pickup(ctx.rod, ctx.position, ctx.axis, F_HZ)
     az = np.arange(0.0, 360.0, 1.0)
     return P.system_response(pff, 0, zii, cap, 1e4, ctx, rod, az, [0.0], repeak_radio=repeak)
