@@ -686,7 +686,7 @@ def system_model(ctx, frequency_hz: float, tap: int, zii: complex, loop_c_f: flo
 
     ``ctx`` is a :class:`simloop.coupling._Context` (the loop's currents, the rod and where it sits).
     """
-    from simloop.coupling import mutual_inductance_h, repeak
+    from simloop.coupling import repeak
 
     f = float(frequency_hz)
     w = 2 * np.pi * f

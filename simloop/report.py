@@ -48,9 +48,6 @@ def finite_json(value):
     return value
 
 
-# The former private names, still imported by report_couple, report_pattern and report_tune
-# (their owners move to the public names).
-_pairs, _num, _finite = complex_pairs, number_or_none, finite_json
 
 
 def write_json(path: Path, data: dict) -> Path:

@@ -13,7 +13,7 @@ import numpy as np
 
 from simloop import __version__
 from simloop.coupling import MAP_ORIENTATIONS_DEG, NEAR_WIRE_DIAMETERS, CoupleResult
-from simloop.report import _pairs, write_json
+from simloop.report import complex_pairs, write_json
 from simloop.units import format_length
 
 __all__ = ["couple_dict", "format_couple_summary", "write_couple"]
@@ -87,7 +87,7 @@ def couple_dict(r: CoupleResult, z0: float = 50.0) -> dict:
                           "refused": f"null where the rod comes within {NEAR_WIRE_DIAMETERS:g} rod "
                                      f"diameters of the wire"},
         "two_port": {"file": "loop-receiver.s2p", "z0_ohm": z0, "tap": int(r.tap_turns[t]),
-                     "frequencies_hz": r.s_frequencies_hz.tolist(), "z_ohm": _pairs(r.s_z_ohm)},
+                     "frequencies_hz": r.s_frequencies_hz.tolist(), "z_ohm": complex_pairs(r.s_z_ohm)},
         "definitions": {
             "boost": "|V at the radio's tuning capacitor with the loop| / |alone|, the radio re-peaked "
                      "to the signal in both cases; alone = the radio turned for best reception",

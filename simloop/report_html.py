@@ -21,6 +21,8 @@ from pathlib import Path
 
 import numpy as np
 
+from simloop.report import number_or_none
+
 __all__ = ["SECTIONS", "SUMMARIES", "format_summary", "register_section", "render_report", "summary_dict",
            "write_report"]
 
@@ -740,11 +742,6 @@ def write_report(result, out: Path) -> Path:
 # ------------------------------------------------------------------------------------------------
 
 
-def _finite_or_none(x) -> float | None:
-    """JSON has no NaN: a quantity that could not be determined is null."""
-    x = float(x)
-    return x if math.isfinite(x) else None
-
 
 def summary_tune(result) -> dict | None:
     """Coverage per tap, gaps, channels covered and suggested taps."""
@@ -753,10 +750,10 @@ def summary_tune(result) -> dict | None:
         return None
     return {
         "band": t.band.name,
-        "coverage": [{"tap": n, "f_low_hz": _finite_or_none(t.f_low_hz[i]),
-                      "f_high_hz": _finite_or_none(t.f_high_hz[i]),
+        "coverage": [{"tap": n, "f_low_hz": number_or_none(t.f_low_hz[i]),
+                      "f_high_hz": number_or_none(t.f_high_hz[i]),
                       "channels": int(np.sum(t.channel_tap_index == i))} for i, n in enumerate(t.tap_turns)],
-        "gaps_hz": [[_finite_or_none(a), _finite_or_none(b)] for a, b in t.gaps_hz],
+        "gaps_hz": [[number_or_none(a), number_or_none(b)] for a, b in t.gaps_hz],
         "channels": int(t.frequencies_hz.size),
         "channels_covered": int(np.sum(t.covered)),
         "suggested_taps": list(t.suggestion.taps) if t.suggestion is not None else None,
@@ -786,15 +783,15 @@ def summary_couple(result) -> dict | None:
     ok = np.isfinite(c.boost_db)
     return {"boost": {
         "frequency_hz": c.frequency_hz, "tap": int(c.tap_turns[c.tap_index]),
-        "best": {"boost_db": _finite_or_none(c.best_boost_db), "position_m": [float(v) for v in c.best_position_m],
+        "best": {"boost_db": number_or_none(c.best_boost_db), "position_m": [float(v) for v in c.best_position_m],
                  "axis": [float(v) for v in c.best_axis], "orientation_deg": float(c.best_orientation_deg),
                  "at_near_wire_limit": best_spot_at_edge(c)},
-        "optimum_spacing": {"distance_m": _finite_or_none(c.optimum_spacing_m),
-                            "boost_db": _finite_or_none(c.optimum_spacing_boost_db),
+        "optimum_spacing": {"distance_m": number_or_none(c.optimum_spacing_m),
+                            "boost_db": number_or_none(c.optimum_spacing_boost_db),
                             "at_near_limit": bool(c.optimum_at_near_limit)},
-        "capacitor_peak_width_f": _finite_or_none(c.capacitor_width_f),
-        "capacitor_peak_width_travel_m": _finite_or_none(c.capacitor_width_m),
-        "band_boost_db": [_finite_or_none(np.nanmin(c.boost_db)), _finite_or_none(np.nanmax(c.boost_db))]
+        "capacitor_peak_width_f": number_or_none(c.capacitor_width_f),
+        "capacitor_peak_width_travel_m": number_or_none(c.capacitor_width_m),
+        "band_boost_db": [number_or_none(np.nanmin(c.boost_db)), number_or_none(np.nanmax(c.boost_db))]
         if ok.any() else None,
         "receiver_assumed": bool(c.receiver_assumed)}}
 

@@ -15,7 +15,7 @@ import numpy as np
 
 from simloop.mesh import C0
 from simloop.patterns import DEPTH_FLOOR_DB, PatternResult
-from simloop.report import _pairs, write_json
+from simloop.report import complex_pairs, write_json
 
 #: The figure's dB floor: the rings run from here to 0 dB. [dB]
 PLOT_FLOOR_DB = -40.0
@@ -121,7 +121,7 @@ def pattern_dict(result: PatternResult) -> dict:
         "nulls": [{"azimuth_deg": n.azimuth_deg, "elevation_deg": n.elevation_deg, "depth_db": n.depth_db,
                    "of": n.of, "cause": n.cause, "cause_text": cause_text(n), "detail": n.detail}
                   for n in result.nulls],
-        "dipole": {"magnetic_moment_a_m2": _pairs(m), "electric_moment_c_m": _pairs(p),
+        "dipole": {"magnetic_moment_a_m2": complex_pairs(m), "electric_moment_c_m": complex_pairs(p),
                    "electric_over_magnetic": e_ratio, "multipole_residual": result.multipole_residual},
         "floor_hz": result.floor_hz,
         "system": _system_dict(result.system),
@@ -137,7 +137,7 @@ def _system_dict(model) -> dict | None:
             "radio_capacitance_exact_tune_f": model.radio_capacitance_exact_f,
             "rod_position_m": list(model.rod_position_m), "rod_axis": list(model.rod_axis),
             "rod_angle_deg": model.rod_angle_deg, "rod_assumed": model.rod_assumed,
-            "transfer_loop": _pairs(np.array([model.t_loop]))[0], "transfer_rod": _pairs(np.array([model.t_rod]))[0]}
+            "transfer_loop": complex_pairs(np.array([model.t_loop]))[0], "transfer_rod": complex_pairs(np.array([model.t_rod]))[0]}
 
 
 def format_pattern_summary(result: PatternResult) -> str:

@@ -14,17 +14,13 @@ import numpy as np
 
 from simloop import __version__
 from simloop.impedance import RELIABLE_BELOW
-from simloop.report import _num, write_json
+from simloop.report import number_or_none, write_json
 from simloop.tuner import PlateTuner
 from simloop.tuning import RANGE_MARGIN, TuneResult
 from simloop.units import format_length
 
 __all__ = ["format_tune_summary", "tune_dict", "write_tune"]
 
-
-def _opt(x) -> float | None:
-    """A float, or None for NaN/inf (JSON has no NaN)."""
-    return None if x is None else _num(x)
 
 
 def _tuner_dict(t) -> dict:
@@ -55,31 +51,31 @@ def _channel(r: TuneResult, j: int) -> dict:
         "frequency_hz": float(r.frequencies_hz[j]),
         "tap": int(r.tap_turns[i]),
         "capacitance_f": float(r.capacitance_f[j]),
-        "capacitance_error_f": _opt(r.capacitance_error_f[j]),
-        "capacitance_step_f": _opt(r.capacitance_step_f[j]),
-        "bandwidth_hz": _opt(r.bandwidth_hz[j]),
-        "bandwidth_no_proximity_hz": _opt(r.bandwidth_no_proximity_hz[j]),
-        "q_loop": _opt(r.q_loop[j]),
-        "q_loaded": _opt(r.q_loaded[j]),
-        "q_loaded_no_proximity": _opt(r.q_loaded_no_proximity[j]),
+        "capacitance_error_f": number_or_none(r.capacitance_error_f[j]),
+        "capacitance_step_f": number_or_none(r.capacitance_step_f[j]),
+        "bandwidth_hz": number_or_none(r.bandwidth_hz[j]),
+        "bandwidth_no_proximity_hz": number_or_none(r.bandwidth_no_proximity_hz[j]),
+        "q_loop": number_or_none(r.q_loop[j]),
+        "q_loaded": number_or_none(r.q_loaded[j]),
+        "q_loaded_no_proximity": number_or_none(r.q_loaded_no_proximity[j]),
         "audio_cut": bool(r.audio_cut[j]),
-        "audio_loss_db": _opt(r.audio_loss_db[j]),
+        "audio_loss_db": number_or_none(r.audio_loss_db[j]),
         "covered": True,
         "reliable": bool(r.reliable[j]),
         "edge": bool(r.edge[j]),
         "outside_sweep": bool(r.outside_sweep[j]),
-        "error_estimate": _opt(r.error_estimate[j]),
-        "effective_height_m": _opt(r.effective_height_m[j]),
-        "voltage_v": _opt(r.voltage_v[j]),
-        "current_a": _opt(r.current_a[j]),
+        "error_estimate": number_or_none(r.error_estimate[j]),
+        "effective_height_m": number_or_none(r.effective_height_m[j]),
+        "voltage_v": number_or_none(r.voltage_v[j]),
+        "current_a": number_or_none(r.current_a[j]),
         "alternatives": alternatives,
     }
     if r.tuner.has_position:
-        out["position_m"] = _opt(r.position_m[j])
-        out["position_step_m"] = _opt(r.position_step_m[j])
-        out["position_error_m"] = _opt(r.capacitance_error_f[j] / r.tuner.capacitance_per_m)
+        out["position_m"] = number_or_none(r.position_m[j])
+        out["position_step_m"] = number_or_none(r.position_step_m[j])
+        out["position_error_m"] = number_or_none(r.capacitance_error_f[j] / r.tuner.capacitance_per_m)
         if r.imperial:
-            out["position_in"] = _opt(r.position_m[j] / 0.0254)
+            out["position_in"] = number_or_none(r.position_m[j] / 0.0254)
     return out
 
 
@@ -121,8 +117,8 @@ def _circuit_error_dict(r: TuneResult, h) -> dict | None:
                     "R_ii circuit, both with the proximity loss (the model tune uses against exact "
                     "circuit solves it was not fitted to)",
         "held_back_hz": [float(f) for f in h.circuit_hz],
-        "max_relative_error": {str(n): _opt(h.circuit_max_relative_error[i]) for i, n in taps},
-        "max_resistance_error": {str(n): _opt(h.circuit_max_resistance_error[i]) for i, n in taps},
+        "max_relative_error": {str(n): number_or_none(h.circuit_max_relative_error[i]) for i, n in taps},
+        "max_resistance_error": {str(n): number_or_none(h.circuit_max_resistance_error[i]) for i, n in taps},
         "relative_error": {str(n): [float(e) for e in h.circuit_relative_error[:, i]] for i, n in taps},
         "resistance_error": {str(n): [float(e) for e in h.circuit_resistance_error[:, i]] for i, n in taps},
         "relative_to_fit": h.circuit_relative_to_fit,
@@ -136,7 +132,7 @@ def _mom_error_dict(r: TuneResult, h) -> dict | None:
     return {
         "quantity": "|Z_ii model − Z_ii MoM| / |Z_ii MoM|, model without the proximity correction",
         "held_back_hz": [float(f) for f in h.frequencies_hz],
-        "max_relative_error": ({str(n): _opt(h.max_relative_error[i]) for i, n in taps}
+        "max_relative_error": ({str(n): number_or_none(h.max_relative_error[i]) for i, n in taps}
                                if h.frequencies_hz.size else None),
         "relative_error": {str(n): [float(e) for e in h.relative_error[:, i]] for i, n in taps},
         "mom_error_estimate": {str(n): [float(e) for e in h.mom_error_estimate[:, i]] for i, n in taps},
@@ -155,17 +151,17 @@ def tune_dict(r: TuneResult) -> dict:
     for i, n in enumerate(r.tap_turns):
         taps[str(n)] = {
             "turns": int(n),
-            "f_low_hz": _opt(r.f_low_hz[i]),
-            "f_high_hz": _opt(r.f_high_hz[i]),
-            "f_low_relative_error": _opt(r.coverage_error[i, 0]),
-            "f_high_relative_error": _opt(r.coverage_error[i, 1]),
+            "f_low_hz": number_or_none(r.f_low_hz[i]),
+            "f_high_hz": number_or_none(r.f_high_hz[i]),
+            "f_low_relative_error": number_or_none(r.coverage_error[i, 0]),
+            "f_high_relative_error": number_or_none(r.coverage_error[i, 1]),
             # A coverage end outside the swept frequencies is the model's extrapolation.
             "beyond_sweep": bool(r.f_high_hz[i] > r.sweep_range_hz[1] * (1 + 1e-9)
                                  or r.f_low_hz[i] < r.sweep_range_hz[0] * (1 - 1e-9)),
             "inductance_h": float(r.inductance_h[i]),
             "inductance_error": float(r.inductance_error[i]),
-            "self_resonance_hz": _opt(r.self_resonance_hz[i]),
-            "self_capacitance_f": _opt(r.self_capacitance_f[i]),
+            "self_resonance_hz": number_or_none(r.self_resonance_hz[i]),
+            "self_capacitance_f": number_or_none(r.self_capacitance_f[i]),
             "channels": int(np.sum(r.channel_tap_index == i)),
             "used_hz": _used_span(r, i),
             "winding_to_tap_m": None if r.tap_wire_m is None else float(r.tap_wire_m[i]),
@@ -178,8 +174,8 @@ def tune_dict(r: TuneResult) -> dict:
         "margin": s.margin,
         "covers_band": s.covers_band,
         "problems": list(s.problems),
-        "min_capacitance_needed_f": _opt(s.capacitance_needed_f[0]),
-        "max_capacitance_needed_f": _opt(s.capacitance_needed_f[1]),
+        "min_capacitance_needed_f": number_or_none(s.capacitance_needed_f[0]),
+        "max_capacitance_needed_f": number_or_none(s.capacitance_needed_f[1]),
         "method": s.method,
     }
     ok = r.covered
@@ -200,7 +196,7 @@ def tune_dict(r: TuneResult) -> dict:
         "gaps_hz": [[float(a), float(b)] for a, b in r.gaps_hz],
         "tap_rule": r.chart.rule,
         "range_margin": RANGE_MARGIN,
-        "switches": [{"from_tap": w.from_tap, "to_tap": w.to_tap, "last_hz": _opt(w.last_hz),
+        "switches": [{"from_tap": w.from_tap, "to_tap": w.to_tap, "last_hz": number_or_none(w.last_hz),
                       "first_hz": w.first_hz, "reason": w.reason} for w in r.chart.switches],
         "uncovered_channels_hz": [float(f) for f in r.frequencies_hz[~ok]],
         "overlaps": [{"taps": list(o["taps"]),
@@ -219,7 +215,7 @@ def tune_dict(r: TuneResult) -> dict:
         "tuner_at_field": {
             "field_v_per_m": r.field_v_per_m,
             "max_voltage_v": None if at is None else float(r.voltage_v[at]),
-            "max_current_a": None if at is None else _opt(np.nanmax(r.current_a[ok])),
+            "max_current_a": None if at is None else number_or_none(np.nanmax(r.current_a[ok])),
             "at_hz": None if at is None else float(r.frequencies_hz[at]),
             "orientation": "wave arriving in the loop plane (maximum response)",
         },

@@ -72,7 +72,7 @@ from scipy.optimize import brentq
 from simloop import reference
 from simloop.constants import F_MAX_HZ, F_MIN_HZ  # the spec's limits [Hz], docs/references.md §13
 from simloop.errors import SpecError
-from simloop.geometry import WINDING, build_loop
+from simloop.geometry import WINDING, loop_from_spec
 from simloop.impedance import RELIABLE_BELOW, SweepResult
 from simloop.tuner import (
     PlateTuner,
@@ -528,9 +528,7 @@ def _pf(value_f: float) -> str:
 
 def _single_tap_inductance(spec, n: int) -> float:
     """Quasi-static inductance of the path through a tap at n turns (same frame, winding, leads)."""
-    g = build_loop(width_m=spec.frame.width_m, height_m=spec.frame.height_m, turns=spec.winding.turns,
-                   pitch_m=spec.winding.pitch_m, wire_radius_m=spec.wire.radius_m, tap_turns=(n,),
-                   lead_offset_m=spec.leads.offset_m, style=spec.winding.style)
+    g = loop_from_spec(spec, tap_turns=(n,))
     return float(reference.inductance_partial_sum(*g.current_path(0), g.wire_radius_m))
 
 
