@@ -18,12 +18,13 @@ import time
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
 import numpy as np  # noqa: E402
+from _machine import load, machine  # noqa: E402
 
 from simloop.circuit import build_circuit  # noqa: E402
 from simloop.geometry import build_loop  # noqa: E402
 from simloop.mesh import build_mesh  # noqa: E402
 from simloop.reference import resistivity_copper  # noqa: E402
-from simloop.solve import Environment, _solve_ports  # noqa: E402
+from simloop.solve import Environment, PortCurrents, PortSources, _solve_plan  # noqa: E402
 
 RHO = float(resistivity_copper())
 
@@ -33,8 +34,10 @@ def _loop():
 
 
 def _nec_seconds(mesh, frequency_hz: float) -> float:
+    """One in-process PyNEC solve of all three ports (fill, LU, back-substitutions), no worker."""
     t0 = time.perf_counter()
-    _solve_ports(mesh.as_payload(), Environment().as_payload(), frequency_hz)
+    _solve_plan(mesh.as_payload(), Environment().as_payload(), frequency_hz, [PortSources().descriptor()],
+                [{**PortCurrents().descriptor(), "name": "i"}])
     return time.perf_counter() - t0
 
 
@@ -78,9 +81,11 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="small meshes only")
     args = ap.parse_args()
+    print(f"machine: {machine()}")
     targets = [0.06, 0.03, 0.02] if args.quick else [0.06, 0.03, 0.02, 0.012, 0.008]
     scaling(targets, nec_up_to=1500 if args.quick else 4000)
     sweep_200(0.03 if args.quick else 0.02)
+    print(f"at the end: {load()}")
 
 
 if __name__ == "__main__":

@@ -13,6 +13,8 @@ import time
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
+from _machine import machine  # noqa: E402
+
 import numpy as np  # noqa: E402
 
 from simloop.coupling import mutual_inductance_h  # noqa: E402
@@ -22,6 +24,7 @@ from simloop.receiver import _slices, build_rod  # noqa: E402
 
 
 def main() -> None:
+    print(f"machine: {machine()}")
     geom = build_loop(width_m=0.8, height_m=0.6, turns=10, pitch_m=0.006, wire_radius_m=0.0004,
                       tap_turns=(6, 8, 10), lead_offset_m=0.03, style="stacked")
     src = quasi_static_source(geom)

@@ -19,6 +19,8 @@ import time
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
+from _machine import machine  # noqa: E402
+
 from simloop.geometry import build_loop  # noqa: E402
 from simloop.mesh import build_mesh  # noqa: E402
 from simloop.patterns import pattern_plan  # noqa: E402
@@ -35,6 +37,7 @@ def seconds(plan) -> float:
 
 def main():
     env = Environment()
+    print(f"machine: {machine()}")
     print("segments  ports-only s  +180×3 rows s  ratio  full pattern plan s  ratio")
     for target in (0.03, 0.02, 0.014):
         mesh = build_mesh(build_loop(0.8, 0.6, 10, 0.012, 0.406e-3, (6, 8, 10), 0.06), target)

@@ -19,6 +19,8 @@ import time
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
+from _machine import machine  # noqa: E402
+
 import numpy as np  # noqa: E402
 
 from simloop import solve as solve_mod  # noqa: E402
@@ -47,14 +49,14 @@ def _hang(*args):
 
 def hung_solve_killed_s() -> float:
     mesh = build_mesh(build_loop(0.4, 0.3, 3, 0.02, 0.406e-3, (2, 3), 0.06, "stacked"), 0.02)
-    original = solve_mod._solve_ports
-    solve_mod._solve_ports = _hang  # inherited by the forked worker
+    original = solve_mod._solve_plan
+    solve_mod._solve_plan = _hang  # inherited by the forked worker
     try:
         t0 = time.monotonic()
         (res,) = solve_ports(mesh, Environment(), [1e6], timeout_s=1.0)
         elapsed = time.monotonic() - t0
     finally:
-        solve_mod._solve_ports = original
+        solve_mod._solve_plan = original
     if not isinstance(res, Exception):
         raise RuntimeError("the hung solve was not turned into an error")
     return elapsed
@@ -63,6 +65,7 @@ def hung_solve_killed_s() -> float:
 def main() -> None:
     goals = [("partial sum, 600 pieces [s]", partial_sum_600_pieces_s, 2.0),
              ("hung solve killed (timeout 1 s) [s]", hung_solve_killed_s, 10.0)]
+    print(f"machine: {machine()}")
     print(f"{'goal':40s} {'measured':>9s} {'target':>7s}")
     for name, run, target in goals:
         measured = run()
