@@ -29,6 +29,7 @@ browser:
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_sweep.py
 	$(BIN)/python benchmarks/bench_timing.py
+	$(BIN)/python benchmarks/bench_study.py
 
 clean:
 	rm -rf $(VENV) results/demo
