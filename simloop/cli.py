@@ -210,29 +210,34 @@ def _tune_options(args):
     return band, parse_option(args.field, "field", "--field")
 
 
+def _publish(args, out, command: str, spec, write, summary, sweep, given: bool) -> int:
+    """Write one command's outputs as one set (``write(folder)``), print ``summary()`` unless quiet,
+    and report failed solves of a sweep this command ran itself (``given``: the caller's sweep)."""
+    from simloop.report import output_set
+
+    with output_set(out, command, {"name": spec.name}) as (stage, paths):
+        write(stage)
+    if not args.quiet:
+        print(summary())
+        print(f"wrote {len(paths)} files to {out}/")
+    return 0 if given else _solve_failures(args, sweep)
+
+
 def cmd_tune(args, spec=None, sweep=None) -> int:
     from simloop.report_tune import format_tune_summary, write_tune
     from simloop.tuning import run_tune
-
-    from simloop.report import output_set
 
     given = sweep is not None
     band, field = _tune_options(args)
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     result = run_tune(spec, sweep, band=band, field_v_per_m=field)
-    with output_set(out, "tune", {"name": spec.name}) as (stage, paths):
-        write_tune(result, stage)
-    if not args.quiet:
-        print(format_tune_summary(result))
-        print(f"wrote {len(paths)} files to {out}/")
-    return 0 if given else _solve_failures(args, sweep)
+    return _publish(args, out, "tune", spec, lambda stage: write_tune(result, stage),
+                    lambda: format_tune_summary(result), sweep, given)
 
 
 def cmd_validate(args, spec=None, sweep=None) -> int:
     from simloop.report_validate import format_validate_table, write_validate
     from simloop.validation import run_validate
-
-    from simloop.report import output_set
 
     given = sweep is not None
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
@@ -242,12 +247,8 @@ def cmd_validate(args, spec=None, sweep=None) -> int:
                               convergence=not args.no_convergence)
     finally:
         progress.close()
-    with output_set(out, "validate", {"name": spec.name}) as (stage, paths):
-        write_validate(result, stage)
-    if not args.quiet:
-        print(format_validate_table(result))
-        print(f"wrote {len(paths)} files to {out}/")
-    return 0 if given else _solve_failures(args, sweep)
+    return _publish(args, out, "validate", spec, lambda stage: write_validate(result, stage),
+                    lambda: format_validate_table(result), sweep, given)
 
 
 def cmd_study(args, spec=None, source_text=None) -> int:
@@ -309,7 +310,6 @@ def _stage_failures(args, result) -> int:
 def cmd_couple(args, spec=None, sweep=None) -> int:
     """Loop-to-radio coupling: boost per channel, placement map, optimum spacing, the 2-port."""
     from simloop.coupling import precheck, run_couple
-    from simloop.report import output_set
     from simloop.report_couple import format_couple_summary, write_couple
     from simloop.spec import load
     from simloop.tuning import run_tune
@@ -324,18 +324,13 @@ def cmd_couple(args, spec=None, sweep=None) -> int:
     spec, out, sweep = _spec_out_sweep(args, spec, sweep)
     tune = run_tune(spec, sweep, band=band, field_v_per_m=field)
     result = run_couple(spec, sweep, tune, frequency_hz=frequency, tap_turns=getattr(args, "tap", None))
-    with output_set(out, "couple", {"name": spec.name}) as (stage, paths):
-        write_couple(result, stage, z0=args.z0)
-    if not args.quiet:
-        print(format_couple_summary(result))
-        print(f"wrote {len(paths)} files to {out}/")
-    return 0 if given else _solve_failures(args, sweep)
+    return _publish(args, out, "couple", spec, lambda stage: write_couple(result, stage, z0=args.z0),
+                    lambda: format_couple_summary(result), sweep, given)
 
 
 def cmd_pattern(args, spec=None, sweep=None) -> int:
     """Receive patterns of the loop (and the radio's rod), their nulls and what fills them."""
     from simloop.patterns import check_pattern_inputs, run_pattern
-    from simloop.report import output_set
     from simloop.report_pattern import format_pattern_summary, write_pattern
     from simloop.spec import load
 
@@ -348,12 +343,8 @@ def cmd_pattern(args, spec=None, sweep=None) -> int:
         result = run_pattern(spec, sweep, workers=args.workers, cache=_cache(args), progress=progress)
     finally:
         progress.close()
-    with output_set(out, "pattern", {"name": spec.name}) as (stage, paths):
-        write_pattern(result, stage)
-    if not args.quiet:
-        print(format_pattern_summary(result))
-        print(f"wrote {len(paths)} files to {out}/")
-    return 0 if given else _solve_failures(args, sweep)
+    return _publish(args, out, "pattern", spec, lambda stage: write_pattern(result, stage),
+                    lambda: format_pattern_summary(result), sweep, given)
 
 
 def cmd_demo(args) -> int:

@@ -310,6 +310,11 @@ def test_spiral_panel_validates_with_converged_full_tap():
     sweep = run_sweep(spec)
     result = run_validate(spec, sweep)
     full = spec.taps.turns[-1]
-    assert abs(rows(result, "L0", tap=full)[0].rel_diff_mom) < 0.02
+    # L0 now comes from the circuit solver; against Grover's partial-inductance sum of the same
+    # path (docs/references.md §1) it is exact to the quadrature of the sloped pieces (1e-4), and
+    # the MoM rows above NEC's floor stay within validate's own "ok" threshold L_OK (2 %).
+    assert abs(rows(result, "L0", tap=full)[0].rel_diff_circuit) < 1e-3
+    mom = [c for c in rows(result, "L", tap=full) if c.mom is not None]
+    assert all(abs(c.rel_diff_mom) < 0.02 for c in mom)
     assert next(c for c in result.convergence if c.tap == full).inductance_spread < 0.02
     assert all(a.accepted for a in result.average_gain if a.tap == full)
