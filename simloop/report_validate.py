@@ -361,15 +361,15 @@ def _check_line(c, sources: _Sources) -> str:
     mom = "< resolution" if c.flag == BELOW_RESOLUTION else _si(c.mom, c.unit)
     if c.mom is not None and c.quantity in MOM_PLUS_PROXIMITY:
         mom += "†"
-    hb_d = _pct(c.rel_diff_handbook)
-    if c.reference == "mom" and c.rel_diff_handbook is not None:
-        hb_d += "*"
+    star = "*" if c.reference == "mom" else ""  # relative to MoM (no quasi-static value)
+    c_d, m_d, hb_d = (_pct(x) + (star if x is not None else "")
+                      for x in (c.rel_diff_circuit, c.rel_diff_model, c.rel_diff_handbook))
     src = "/".join(sources.number(x) for x in (c.source_mom, c.source_circuit, c.source_model,
                                                 c.source_quasi_static, c.source_handbook))
     return (f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
             f"{_si(c.circuit, c.unit):>12}  {_si(c.model, c.unit):>12}  "
             f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
-            f"{_pct(c.rel_diff_mom):>8}  {_pct(c.rel_diff_circuit):>8}  {_pct(c.rel_diff_model):>8}  "
+            f"{_pct(c.rel_diff_mom):>8}  {c_d:>8}  {m_d:>8}  "
             f"{hb_d:>8}  {src}")
 
 
@@ -450,7 +450,8 @@ def format_validate_table(result: ValidationResult) -> str:
     lines = _table_header(result)
     for i, n in enumerate(result.tap_turns):
         lines += _tap_table(result, i, n, sources)
-    if any(c.reference == "mom" and c.rel_diff_handbook is not None for c in result.checks):
+    if any(c.reference == "mom" and (c.rel_diff_handbook, c.rel_diff_circuit, c.rel_diff_model) != (None,) * 3
+           for c in result.checks):
         lines.append("  * relative to MoM (no quasi-static value)")
     lines += _convergence_table(result) + _power_balance_table(result) + _table_footer(result, sources)
     return "\n".join(lines)

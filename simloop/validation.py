@@ -764,7 +764,9 @@ def _plan_solves(sweep: SweepResult, convergence: bool) -> _PlannedSolves:
         p.notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
                        f"MoM solve is attempted for; the circuit solver is checked against the formulas")
     elif len(mom_freqs) < len(freqs):
-        p.notes.append(f"MoM column empty below its floor {f_floor_abs / 1e6:.3f} MHz (segments < 5e-5 λ)")
+        p.notes.append(f"MoM column empty at the check frequencies below {f_floor_abs / 1e6:.3f} MHz, where "
+                       f"segments are shorter than 5e-5 λ (the solver's floor; trusted above "
+                       f"{mesh.floor_frequency_hz(FLOOR_TRUSTED) / 1e6:.3f} MHz)")
     p.lossy = {f: p.add(mesh, env, f) for f in mom_freqs}
     if mom_ok:
         p.far_field = p.add(mesh, Environment(wire_conductivity_s_m=None), p.agt_hz, "far_field")
