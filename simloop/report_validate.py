@@ -106,6 +106,10 @@ _NOTES = {
     "path-length": lambda p: f"current path {p['path_m']:.3f} m, of which winding {p['winding_m']:.3f} m",
     "proximity-factor": lambda p: (f"R_p/R_0 = {p['factor']:.4f} for {p['turns']} turns at c/a = "
                                    f"{p['spacing_ratio']:.2f}"),
+    "open-turn-eddy": lambda p: (f"PEEC counts the eddy loss the tap's current induces in the {p['open_turns']} "
+                                 f"open turns beyond it (Smith 1972: a wire with no net current still carries "
+                                 f"eddy currents); QS and HB count the tap's own turns only: on this tap their "
+                                 f"loss reads lower and their Q higher"),
     "q-includes-ground": lambda p: "MoM Q includes the ground loss; the formulas do not",
     "srf-solves-missing": lambda p: ("direct MoM solves either side of the circuit solver's resonance missing "
                                      "or failed"),
@@ -388,6 +392,9 @@ def _tap_table(result: ValidationResult, i: int, n: int, sources: _Sources) -> l
         lines.append(_check_line(c, sources))
     for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.notes):
         lines.append(f"  {c.quantity}: {check_note(c)}")
+    eddy = next((c for c in result.checks if c.tap == n and any(x.code == "open-turn-eddy" for x in c.notes)), None)
+    if eddy is not None:
+        lines.append(f"  {eddy.quantity}: {note_text(next(x for x in eddy.notes if x.code == 'open-turn-eddy'))}")
     flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
     if flagged is not None:
         lines.append(f"  {flagged.quantity}: {check_note(flagged)}")

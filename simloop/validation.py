@@ -493,6 +493,15 @@ def _add_circuit(rows: list[Check], values: dict | None) -> list[Check]:
     return [_with_circuit(r, values.get(r.quantity), _SRC_CIRCUIT) for r in rows]
 
 
+def _with_open_turn_note(check: Check, open_turns: int) -> Check:
+    """A mid tap's proximity-loss row notes that only the circuit solver counts the eddy loss of
+    the open turns beyond the tap (Smith 1972: a wire with no net current still carries eddy
+    currents); the quasi-static and handbook columns count the tap's own turns."""
+    if open_turns <= 0 or check.quantity != "R_loss skin+prox" or check.circuit is None:
+        return check
+    return dataclasses.replace(check, notes=check.notes + (_note("open-turn-eddy", open_turns=open_turns),))
+
+
 def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lossy, lossless,
                       agt: float | None) -> list[Check]:
     """L, radiation resistance, wire loss and Q of tap i at one MoM frequency."""
@@ -846,10 +855,12 @@ def _all_checks(spec, sweep: SweepResult, p: _PlannedSolves, solved: _Solved, ag
         l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, None, _SRC_QS_L, tf.src_hb, notes=l0_notes)
         l0_row = _with_model(l0_row, float(sweep.inductance_h[i]), _SRC_MODEL + ", L0")
         checks.append(_add_circuit([l0_row], circ_l0[i])[0])
+        open_turns = spec.winding.turns - n
         for f in p.frequencies_hz:
-            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
-                                                     agt_by_tap.get(i) if f == p.agt_hz else None),
-                                   circ_values(f)[i])
+            rows = _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
+                                                  agt_by_tap.get(i) if f == p.agt_hz else None),
+                                circ_values(f)[i])
+            checks += [_with_open_turn_note(r, open_turns) for r in rows]
         checks += [_add_circuit([r], circ_values(r.frequency_hz)[i])[0] for r in _band_q_checks(spec, sweep, i, tf)]
         checks.append(_add_circuit([_srf_check(spec, sweep, i, solved.srf)], {"SRF": srf_model[i]})[0])
     return checks

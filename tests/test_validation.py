@@ -325,6 +325,19 @@ def test_q_tune_rows_carry_the_lumped_model_in_its_own_column(stacked):
                                                          rel=1e-12, abs=0) for c in l0)
 
 
+def test_mid_tap_proximity_rows_say_the_circuit_counts_the_open_turns(stacked):
+    # Smith (1972): a wire with no net current still carries eddy currents, so the circuit solver
+    # puts loss into tap 2's two open turns that the quasi-static term (the tap's own turns) has
+    # not: tap 2's PEEC proximity loss stands further above QS than the full tap's.
+    spec, sweep, result = stacked
+    mid, full = rows(result, "R_loss skin+prox", tap=2), rows(result, "R_loss skin+prox", tap=4)
+    assert mid and all(any(n.code == "open-turn-eddy" and n.params["open_turns"] == 2 for n in c.notes)
+                       for c in mid)
+    assert not any(n.code == "open-turn-eddy" for c in full for n in c.notes)
+    for a, b in zip(mid, full):
+        assert a.rel_diff_circuit > b.rel_diff_circuit
+
+
 def test_srf_row_differences_refer_to_the_mom_not_the_handbook(stacked):
     # The SRF row has no quasi-static value: its differences are from the direct MoM (marked *),
     # never from Medhurst's handbook estimate.
