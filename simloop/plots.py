@@ -165,27 +165,65 @@ def _q_panel(ax, r):
     ax.grid(alpha=0.3)
 
 
+#: Stacking order of the bandwidth panel: the line without proximity effect above the channel
+#: markers (matplotlib draws lines and markers at zorder 2), so a few-per-cent difference shows.
+NO_PROXIMITY_ZORDER = 4
+
+
+def proximity_bandwidth_spread(r) -> tuple[float, float] | None:
+    """Smallest and largest relative narrowing of the bandwidth without the proximity effect,
+    1 − B_no-prox / B, over the covered channels (None when no channel is covered). [-]"""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = 1 - r.bandwidth_no_proximity_hz / r.bandwidth_hz
+    d = d[np.asarray(r.covered, dtype=bool) & np.isfinite(d)]
+    return (float(d.min()), float(d.max())) if d.size else None
+
+
+#: Below this fraction of the panel's height the two bandwidth lines cannot be told apart and the
+#: legend says so (this tool's choice: about 2 px of a 200 px panel).
+SAME_LINE_FRACTION = 0.01
+
+
+def proximity_bandwidth_label(spread: tuple[float, float] | None, coincide: bool = False) -> str:
+    """Legend text of the bandwidth without proximity effect: how much narrower it is, and
+    whether it lies on the solid line at the panel's scale (``coincide``)."""
+    if spread is None:
+        return "without proximity effect"
+    lo, hi = spread
+    word = "narrower" if hi >= 0 else "wider"
+    lo, hi = sorted((abs(lo), abs(hi)))
+    amount = f"{hi:.1%}" if f"{lo:.1%}" == f"{hi:.1%}" else f"{lo:.1%}–{hi:.1%}"
+    return f"without proximity effect: {word} by {amount}" + (", on the solid line at this scale" if coincide else "")
+
+
 def _bandwidth_panel(ax, r):
-    """−3 dB bandwidth of the chosen tap against the channel's audio; without proximity effect dashed."""
+    """−3 dB bandwidth of the chosen tap against the channel's audio; without proximity effect a
+    thin black dashed line with a white edge, drawn above the channel markers."""
+    from matplotlib import patheffects
+
     f_k = r.frequencies_hz / 1e3
+    halo = [patheffects.withStroke(linewidth=2.6, foreground="white")]
     for i in range(len(r.tap_turns)):
         col = _tap_colour(i)
         sel = r.channel_tap_index == i
         ax.plot(f_k[sel], r.bandwidth_hz[sel] / 1e3, "-", color=col, lw=1.0)
         _channel_markers(ax, f_k[sel], r.bandwidth_hz[sel] / 1e3, r.reliable[sel], col, 3)
-        ax.plot(f_k[sel], r.bandwidth_no_proximity_hz[sel] / 1e3, "--", color=col, lw=1.3, alpha=0.8)
+        ax.plot(f_k[sel], r.bandwidth_no_proximity_hz[sel] / 1e3, "--", color="k", lw=0.9,
+                dashes=(4, 2), path_effects=halo, zorder=NO_PROXIMITY_ZORDER, gid="no-proximity")
     audio = 2 * r.band.audio_hz / 1e3
     ax.axhline(audio, color="k", lw=0.9, ls=":",
                label=f"channel audio ±{r.band.audio_hz / 1e3:g} kHz: below, the loop cuts treble")
     ax.axhspan(0, audio, color="tab:orange", alpha=0.10, lw=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        gap = np.nanmax(np.abs(1 - r.bandwidth_no_proximity_hz / r.bandwidth_hz)) if np.any(r.covered) else 0.0
-    ax.plot([], [], "k--", lw=1.3, label=f"without proximity effect (narrower, by up to {gap:.1%})")
-    ax.legend(fontsize=7.5, loc="upper left")
-    ax.set_ylabel("−3 dB bandwidth [kHz]")
     both = np.concatenate([r.bandwidth_hz, r.bandwidth_no_proximity_hz]) / 1e3
     ymax = np.nanmax(both) if np.any(np.isfinite(both)) else audio
-    ax.set_ylim(0, max(audio, ymax) * 1.25)
+    ytop = max(audio, ymax) * 1.25
+    ax.set_ylim(0, ytop)
+    step = np.abs(r.bandwidth_hz - r.bandwidth_no_proximity_hz)[np.asarray(r.covered, dtype=bool)] / 1e3
+    coincide = bool(step.size) and np.nanmax(step) < SAME_LINE_FRACTION * ytop
+    ax.plot([], [], "--", color="k", lw=0.9, dashes=(4, 2), path_effects=halo,
+            label=proximity_bandwidth_label(proximity_bandwidth_spread(r), coincide))
+    ax.legend(fontsize=7.5, loc="upper left")
+    ax.set_ylabel("−3 dB bandwidth [kHz]")
     ax.grid(alpha=0.3)
     ax.set_xlabel("frequency [kHz]")
 

@@ -174,6 +174,16 @@ def _figure(**kw):
     return Figure(**kw)
 
 
+def boost_legend_label(turns: int, coupling_k: float) -> str:
+    """Legend text of one tap in boost.png: its coupling as |k|.
+
+    The sign of k = M/√(L_loop L_rod) only says which way the rod's coil is wound relative to the
+    loop (reversing either winding flips it); the boost depends on |k| alone, so the figure shows
+    the magnitude (coupling.json keeps the signed value).
+    """
+    return f"tap {turns} (|k| = {abs(coupling_k):.4f})"
+
+
 def plot_boost(r: CoupleResult, path: Path) -> Path:
     """Boost against frequency (per tap), against the loop's capacitor, and against distance."""
     fig = _figure(figsize=(12, 8), constrained_layout=True)
@@ -184,13 +194,13 @@ def plot_boost(r: CoupleResult, path: Path) -> Path:
         sel = r.channel_tap == i
         if sel.any():
             ax_f.plot(r.frequencies_hz[sel] / 1e3, r.boost_db[sel], styles[i % len(styles)], ms=3,
-                      lw=1.2, label=f"tap {n} (k = {r.coupling_k[i]:+.4f})")
+                      lw=1.2, label=boost_legend_label(n, r.coupling_k[i]))
     ax_f.set_xlabel("frequency [kHz]")
     ax_f.set_ylabel("boost [dB]")
     ax_f.set_title(f"{r.name}: boost of the radio's signal, loop re-tuned per channel "
                    f"(radio at {', '.join(f'{v:+.2f}' for v in r.position_m)} m)")
     ax_f.grid(alpha=0.3)
-    ax_f.legend(fontsize=8)
+    ax_f.legend(fontsize=8, title="coupling |k| (its sign is only the winding sense)", title_fontsize=7.5)
     ax_c = fig.add_subplot(grid[1, 0])
     ax_c.plot(r.capacitor_f * 1e12, r.capacitor_boost_db, "k-", lw=1.3)
     top = np.nanmax(r.capacitor_boost_db)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 
@@ -18,6 +19,28 @@ from simloop.validation import (
     ValidationResult,
     Verdict,
 )
+
+
+def _all_within(p: dict) -> str:
+    """The ok verdict in words, naming only the checks that ran (older results lack the flags)."""
+    parts = [f"every tap's inductance (circuit solver, and MoM where it runs) is within "
+             f"{p['inductance'] * 100:g} % of the quasi-static sum"]
+    if p.get("convergence_checked", True):
+        parts.append(f"the mesh-convergence spread is below {p['spread'] * 100:g} %")
+    if p.get("power_balance_run", True):
+        parts.append(f"the power balance (radiated over accepted power) is within "
+                     f"±{p['power_balance'] * 100:.0f} %")
+    if p.get("mom_run", True):
+        parts.append("no mesh rule of the MoM warns")
+    text = parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + " and " + parts[-1]
+    skipped = [name for key, name in (("convergence_checked", "mesh convergence"),
+                                      ("power_balance_run", "power balance")) if not p.get(key, True)]
+    return text + (f" ({' and '.join(skipped)} not run: see the notes)" if skipped else "")
+
+
+def _readable(message: str) -> str:
+    """A formula's warning with its long decimals cut to four significant digits."""
+    return re.sub(r"\d+\.\d{5,}(?:e[+-]?\d+)?", lambda m: f"{float(m.group()):.4g}", message)
 
 
 def _where(f) -> str:
@@ -62,11 +85,7 @@ _REASONS = {
                                 f"extrapolated zero-segment value"),
     "convergence-not-assessed": lambda p: "mesh convergence could not be assessed",
     "convergence-not-checked": lambda p: "mesh convergence not checked (--no-convergence)",
-    "all-within": lambda p: (f"every tap's inductance (circuit solver, and MoM where it runs) is within "
-                             f"{p['inductance'] * 100:g} % of the quasi-static sum, the mesh-convergence "
-                             f"spread is below {p['spread'] * 100:g} %, the power balance (radiated over "
-                             f"accepted power) is within ±{p['power_balance'] * 100:.0f} % and no mesh rule "
-                             f"warns"),
+    "all-within": lambda p: _all_within(p),
 }
 
 
@@ -82,18 +101,23 @@ _NOTES = {
                                           f"{'negative' if p['resistance_ohm'] < 0 else 'below %g Ω' % p['resolution_ohm']}"
                                           f" over real ground: not resolved by the solver (ground-loss increments "
                                           f"below ~{p['resolution_ohm']} Ω are noise)"),
-    "formula-warning": lambda p: p["message"],
+    "formula-warning": lambda p: _readable(p["message"]),
     "power-ratio": lambda p: f"radiated/accepted power {p['ratio']:.4f}",
     "path-length": lambda p: f"current path {p['path_m']:.3f} m, of which winding {p['winding_m']:.3f} m",
     "proximity-factor": lambda p: (f"R_p/R_0 = {p['factor']:.4f} for {p['turns']} turns at c/a = "
                                    f"{p['spacing_ratio']:.2f}"),
+    "open-turn-eddy": lambda p: (f"PEEC counts the eddy loss the tap's current induces in the {p['open_turns']} "
+                                 f"open turns beyond it (Smith 1972: a wire with no net current still carries "
+                                 f"eddy currents); QS and HB count the tap's own turns only: on this tap their "
+                                 f"loss reads lower and their Q higher"),
     "q-includes-ground": lambda p: "MoM Q includes the ground loss; the formulas do not",
-    "srf-solves-missing": lambda p: "direct MoM solves either side of the model's resonance missing or failed",
-    "srf-model": lambda p: f"fitted model: {p['frequency_hz'] / 1e6:.4f} MHz",
+    "srf-solves-missing": lambda p: ("direct MoM solves either side of the circuit solver's resonance missing "
+                                     "or failed"),
+    "srf-model": lambda p: f"circuit solver: {p['frequency_hz'] / 1e6:.4f} MHz",
     "srf-not-bracketed": lambda p: (f"no resonance between {p['low_hz'] / 1e6:.3f} and {p['high_hz'] / 1e6:.3f} MHz "
-                                    f"in direct MoM: the model's resonance ({p['frequency_hz'] / 1e6:.3f} MHz) is "
+                                    f"in direct MoM: the circuit solver's resonance ({p['frequency_hz'] / 1e6:.3f} MHz) is "
                                     f"off by more than {p['bracket']:.0%}"),
-    "srf-none": lambda p: "no self-resonance within the model's reach",
+    "srf-none": lambda p: "the circuit solver finds no self-resonance within its search range",
     "medhurst": lambda p: (f"Medhurst C = {p['capacitance_f'] * 1e12:.1f} pF for the whole winding as a solenoid "
                            f"of equal perimeter (Medhurst 1947 measured solenoids: not meant for flat box loops)"),
 }
@@ -164,12 +188,14 @@ def _check_entry(c) -> dict:
         "frequency_hz": number_or_none(c.frequency_hz),
         "mom": number_or_none(c.mom),
         "circuit": number_or_none(c.circuit),
+        "model": number_or_none(c.model),
         "quasi_static": number_or_none(c.quasi_static),
         "handbook": number_or_none(c.handbook),
-        "source": {"mom": c.source_mom, "circuit": c.source_circuit,
+        "source": {"mom": c.source_mom, "circuit": c.source_circuit, "model": c.source_model,
                    "quasi_static": c.source_quasi_static, "handbook": c.source_handbook},
         "reference": c.reference,
         "rel_diff": {"mom": number_or_none(c.rel_diff_mom), "circuit": number_or_none(c.rel_diff_circuit),
+                     "model": number_or_none(c.rel_diff_model),
                      "handbook": number_or_none(c.rel_diff_handbook)},
         "flag": c.flag,
         "note": check_note(c),
@@ -207,6 +233,7 @@ def _tap_entries(result: ValidationResult) -> dict:
     return {str(n): {
         "turns": n,
         "inductance_h": float(result.inductance_h[i]),
+        "inductance_source": "lumped L-C model fitted to the circuit solver (L0, what tune uses)",
         "inductance_error": float(result.inductance_error[i]),
         "quasi_static_inductance_h": float(result.quasi_static_inductance_h[i]),
         "self_resonance_hz": number_or_none(result.self_resonance_hz[i]),
@@ -318,34 +345,42 @@ def _table_header(result: ValidationResult) -> list[str]:
         f"{m.segment_over_pitch:.2f} × pitch; direct MoM trusted above {m.floor_hz / 1e6:.3f} MHz",
         f"checks at {', '.join(_mhz(f) for f in result.check_frequencies_hz)} MHz (the band below "
         f"{WINDOW_TOP} × self-resonance; MoM only above its floor)",
-        "MoM = method of moments; PEEC = circuit solver of the same path (what the sweep reports); "
-        "QS = quasi-static formulas of the real wire path; HB = handbook formula",
-        "ΔMoM, ΔPEEC, ΔHB: relative difference from QS (from MoM where QS has no value); "
-        "series values have the fitted self-capacitance removed",
+        "MoM = method of moments (- where it does not run: below its floor, or no MoM); PEEC = circuit "
+        "solver of the same path (what the sweep reports); model = lumped L-C model fitted to PEEC "
+        "(what tune and couple use); QS = quasi-static formulas of the real wire path; HB = handbook formula",
+        "ΔMoM, ΔPEEC, Δmodel, ΔHB: relative difference from QS (from MoM where QS has no value); "
+        "series values have the fitted self-capacitance removed; † = MoM + the proximity term of the "
+        "loss model (NEC models the skin effect only)",
     ]
 
 
-_COLUMNS = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'PEEC':>12}  {'QS':>12}  {'HB':>12}  "
-            f"{'ΔMoM':>8}  {'ΔPEEC':>8}  {'ΔHB':>8}  src")
+_COLUMNS = (f"  {'quantity':<17} {'f [MHz]':>7}  {'MoM':>12}  {'PEEC':>12}  {'model':>12}  {'QS':>12}  "
+            f"{'HB':>12}  {'ΔMoM':>8}  {'ΔPEEC':>8}  {'Δmodel':>8}  {'ΔHB':>8}  src")
+
+#: Rows whose MoM value has the proximity term of the loss model added (marked † in the table).
+MOM_PLUS_PROXIMITY = ("R_loss skin+prox", "Q skin+prox")
 
 
 def _check_line(c, sources: _Sources) -> str:
     mom = "< resolution" if c.flag == BELOW_RESOLUTION else _si(c.mom, c.unit)
-    hb_d = _pct(c.rel_diff_handbook)
-    if c.reference == "mom" and c.rel_diff_handbook is not None:
-        hb_d += "*"
-    src = "/".join(sources.number(x) for x in (c.source_mom, c.source_circuit, c.source_quasi_static,
-                                                c.source_handbook))
+    if c.mom is not None and c.quantity in MOM_PLUS_PROXIMITY:
+        mom += "†"
+    star = "*" if c.reference == "mom" else ""  # relative to MoM (no quasi-static value)
+    c_d, m_d, hb_d = (_pct(x) + (star if x is not None else "")
+                      for x in (c.rel_diff_circuit, c.rel_diff_model, c.rel_diff_handbook))
+    src = "/".join(sources.number(x) for x in (c.source_mom, c.source_circuit, c.source_model,
+                                                c.source_quasi_static, c.source_handbook))
     return (f"  {c.quantity:<17} {_mhz(c.frequency_hz):>7}  {mom:>12}  "
-            f"{_si(c.circuit, c.unit):>12}  "
+            f"{_si(c.circuit, c.unit):>12}  {_si(c.model, c.unit):>12}  "
             f"{_si(c.quasi_static, c.unit):>12}  {_si(c.handbook, c.unit):>12}  "
-            f"{_pct(c.rel_diff_mom):>8}  {_pct(c.rel_diff_circuit):>8}  {hb_d:>8}  {src}")
+            f"{_pct(c.rel_diff_mom):>8}  {c_d:>8}  {m_d:>8}  "
+            f"{hb_d:>8}  {src}")
 
 
 def _tap_table(result: ValidationResult, i: int, n: int, sources: _Sources) -> list[str]:
     v = result.tap_verdicts[n]
     lines = ["", f"tap {n} turns: L0 = {result.inductance_h[i] * 1e6:.3f} µH ± {result.inductance_error[i]:.1%} "
-                 f"(sweep), quasi-static {result.quasi_static_inductance_h[i] * 1e6:.3f} µH; "
+                 f"(lumped model fitted to the circuit solver), quasi-static {result.quasi_static_inductance_h[i] * 1e6:.3f} µH; "
                  f"verdict {v.status}",
              _COLUMNS, "  " + "-" * (len(_COLUMNS) - 2)]
     previous_f = "start"
@@ -357,6 +392,9 @@ def _tap_table(result: ValidationResult, i: int, n: int, sources: _Sources) -> l
         lines.append(_check_line(c, sources))
     for c in (c for c in result.checks if c.tap == n and c.quantity in ("L0", "SRF") and c.notes):
         lines.append(f"  {c.quantity}: {check_note(c)}")
+    eddy = next((c for c in result.checks if c.tap == n and any(x.code == "open-turn-eddy" for x in c.notes)), None)
+    if eddy is not None:
+        lines.append(f"  {eddy.quantity}: {note_text(next(x for x in eddy.notes if x.code == 'open-turn-eddy'))}")
     flagged = next((c for c in result.checks if c.tap == n and c.flag), None)
     if flagged is not None:
         lines.append(f"  {flagged.quantity}: {check_note(flagged)}")
@@ -399,14 +437,15 @@ def _power_balance_table(result: ValidationResult) -> list[str]:
 
 
 def _table_footer(result: ValidationResult, sources: _Sources) -> list[str]:
-    lines = ["", f"Q used by tune: {result.q_used_by_tune} (rows 'Q skin+prox' and 'Q tune'); "
-                 f"NEC's wire loss models the skin effect only",
+    lines = ["", f"Q used by tune: {result.q_used_by_tune}, the lumped model's (row 'Q tune', column "
+                 f"model; PEEC's at the same frequency beside it); NEC's wire loss models the skin "
+                 f"effect only",
              f"VERDICT: {result.verdict.status.upper()}"]
     lines += [f"  - {r}" for r in verdict_texts(result.verdict)]
     if result.notes:
         lines.append("notes:")
         lines += [f"  - {note}" for note in result.notes]
-    lines.append("sources (MoM/QS/HB column numbers above):")
+    lines.append("sources (src column: MoM/PEEC/model/QS/HB, - where the column is empty):")
     lines += [f"  {k}. {s}" for k, s in enumerate(sources.texts, start=1)]
     lines.append(f"validation took {result.seconds:.1f} s")
     return lines
@@ -418,7 +457,8 @@ def format_validate_table(result: ValidationResult) -> str:
     lines = _table_header(result)
     for i, n in enumerate(result.tap_turns):
         lines += _tap_table(result, i, n, sources)
-    if any(c.reference == "mom" and c.rel_diff_handbook is not None for c in result.checks):
+    if any(c.reference == "mom" and (c.rel_diff_handbook, c.rel_diff_circuit, c.rel_diff_model) != (None,) * 3
+           for c in result.checks):
         lines.append("  * relative to MoM (no quasi-static value)")
     lines += _convergence_table(result) + _power_balance_table(result) + _table_footer(result, sources)
     return "\n".join(lines)

@@ -137,7 +137,9 @@ SRF_X_CEILING = 0.99
 
 @dataclass(frozen=True)
 class Check:
-    """One row of the comparison: a quantity of one tap, by MoM, quasi-static model and handbook.
+    """One row of the comparison: a quantity of one tap, by MoM, circuit solver, the lumped model
+    tune uses, quasi-static model and handbook; each value sits in the column of the model it
+    comes from (``model``: the lumped L-C model fitted to the circuit solver, never in ``mom``).
 
     ``rel_diff_mom`` = mom / reference − 1 and ``rel_diff_handbook`` = handbook / reference − 1,
     where ``reference`` names the column they refer to (the quasi-static model where it exists,
@@ -163,15 +165,31 @@ class Check:
     circuit: float | None = None
     source_circuit: str | None = None
     rel_diff_circuit: float | None = None
+    model: float | None = None
+    source_model: str | None = None
+    rel_diff_model: float | None = None
+
+
+def _with_model(check: Check, value, source: str) -> Check:
+    """The check with its lumped-model column filled (relative to its reference column)."""
+    if value is None or not np.isfinite(value):
+        return check
+    return dataclasses.replace(check, model=float(value), source_model=source,
+                               rel_diff_model=_rel(float(value), _reference_value(check)))
+
+
+def _reference_value(check: Check) -> float | None:
+    """The value of the column the row's relative differences refer to (QS, else MoM, else none:
+    a handbook value is never the reference)."""
+    return {"quasi_static": check.quasi_static, "mom": check.mom}.get(check.reference)
 
 
 def _with_circuit(check: Check, value, source: str) -> Check:
     """The check with its circuit-solver column filled (relative to its reference column)."""
     if value is None or not np.isfinite(value):
         return check
-    ref = check.quasi_static if check.quasi_static is not None else check.handbook
     return dataclasses.replace(check, circuit=float(value), source_circuit=source,
-                               rel_diff_circuit=_rel(float(value), ref))
+                               rel_diff_circuit=_rel(float(value), _reference_value(check)))
 
 
 @dataclass(frozen=True)
@@ -446,6 +464,7 @@ def _formula_resistances(sweep: SweepResult, i: int, tf: _TapFormulas, f: float)
 
 
 _SRC_CIRCUIT = "circuit solver (PEEC of the same path; series branch, fitted shunt C removed)"
+_SRC_MODEL = "lumped L-C model fitted to the circuit solver (what tune and couple use)"
 
 
 def _circuit_values(circuits, sweep: SweepResult, f: float) -> list[dict]:
@@ -472,6 +491,15 @@ def _add_circuit(rows: list[Check], values: dict | None) -> list[Check]:
     if not values:
         return rows
     return [_with_circuit(r, values.get(r.quantity), _SRC_CIRCUIT) for r in rows]
+
+
+def _with_open_turn_note(check: Check, open_turns: int) -> Check:
+    """A mid tap's proximity-loss row notes that only the circuit solver counts the eddy loss of
+    the open turns beyond the tap (Smith 1972: a wire with no net current still carries eddy
+    currents); the quasi-static and handbook columns count the tap's own turns."""
+    if open_turns <= 0 or check.quantity != "R_loss skin+prox" or check.circuit is None:
+        return check
+    return dataclasses.replace(check, notes=check.notes + (_note("open-turn-eddy", open_turns=open_turns),))
 
 
 def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lossy, lossless,
@@ -525,7 +553,7 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
         rows.append(_check(
             "R_loss skin+prox", "ohm", n, f, None if r_loss is None else r_loss + fr["prox"],
             fr["qs_skin"] + fr["prox"], fr["hb_prox"],
-            "MoM skin loss + proximity term of simloop.losses (as tune uses)",
+            "MoM skin loss + proximity term of simloop.losses (NEC has no proximity effect)",
             "exact skin effect × path length + Smith 1972 proximity factor on the winding",
             "Smith 1972: (N P/(2πa)) R_s (1 + R_p/R_0)",
             notes=[_note("proximity-factor", factor=tf.proximity_factor, turns=n,
@@ -542,7 +570,8 @@ def _frequency_checks(sweep: SweepResult, i: int, tf: _TapFormulas, f: float, lo
         rows.append(_check("Q skin+prox", "-", n, f, zs_l.imag / (zs_l.real + fr["prox"]) if ok_q else None,
                            w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
                            w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "MoM series branch + proximity term (used by tune)",
+                           "MoM series branch + proximity term of simloop.losses (NEC has no proximity "
+                           "effect)",
                            "ωL_qs / (skin + proximity loss + radiation), quasi-static",
                            "ωL_hb / (Smith 1972 loss + Balanis R_rad)", notes=q_note))
     return rows
@@ -559,17 +588,18 @@ def _band_q_checks(spec, sweep: SweepResult, i: int, tf: _TapFormulas) -> list[C
         w = 2 * np.pi * f
         fr = _formula_resistances(sweep, i, tf, f)
         r_tot = r_model[b] + (0.0 if mp is not None else fr["prox"])
-        rows.append(_check("Q tune", "-", tf.turns, f, w * l_tune / r_tot if r_tot > 0 else None,
-                           w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
-                           w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
-                           "lumped model fitted to the circuit with its proximity loss: ωL0/R_s, what tune uses",
-                           "ωL_qs / (skin + proximity loss + radiation), quasi-static",
-                           "ωL_hb / (Smith 1972 loss + Balanis R_rad)"))
+        row = _check("Q tune", "-", tf.turns, f, None,
+                     w * tf.l_qs / (fr["qs_skin"] + fr["prox"] + fr["rr_qs"]),
+                     w * tf.l_hb / (fr["hb_prox"] + fr["rr_hb"]),
+                     None, "ωL_qs / (skin + proximity loss + radiation), quasi-static",
+                     "ωL_hb / (Smith 1972 loss + Balanis R_rad)")
+        rows.append(_with_model(row, w * l_tune / r_tot if r_tot > 0 else None,
+                                _SRC_MODEL + " with its proximity loss: ωL0/R_s, the Q tune uses"))
     return rows
 
 
 def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
-    """Self-resonance by direct MoM either side of the model's prediction, and Medhurst's."""
+    """Self-resonance by direct MoM either side of the circuit solver's, and Medhurst's."""
     f_model = float(sweep.self_resonance_hz[i])
     srf_mom, notes = None, []
     if np.isfinite(f_model):
@@ -598,7 +628,7 @@ def _srf_check(spec, sweep: SweepResult, i: int, srf_solves: dict) -> Check:
         hb_srf = float(1 / (2 * np.pi * np.sqrt(l_full * float(c_med))))
         notes += [_note("medhurst", capacitance_f=float(c_med))] + [_note("formula-warning", message=w) for w in warn]
     return _check("SRF", "Hz", sweep.tap_turns[i], None, srf_mom, None, hb_srf,
-                  "direct MoM, zero of Im Y_in bracketed ±4 % around the fitted model's resonance", None,
+                  "direct MoM, zero of Im Y_in bracketed ±4 % around the circuit solver's resonance", None,
                   "Medhurst 1947 self-capacitance with the handbook L" if hb_srf else None, notes=notes)
 
 
@@ -743,7 +773,9 @@ def _plan_solves(sweep: SweepResult, convergence: bool) -> _PlannedSolves:
         p.notes.append(f"no MoM column: {mesh.n_segments} segments exceed the {MOM_MAX_SEGMENTS} a direct "
                        f"MoM solve is attempted for; the circuit solver is checked against the formulas")
     elif len(mom_freqs) < len(freqs):
-        p.notes.append(f"MoM column empty below its floor {f_floor_abs / 1e6:.3f} MHz (segments < 5e-5 λ)")
+        p.notes.append(f"MoM column empty at the check frequencies below {f_floor_abs / 1e6:.3f} MHz, where "
+                       f"segments are shorter than 5e-5 λ (the solver's floor; trusted above "
+                       f"{mesh.floor_frequency_hz(FLOOR_TRUSTED) / 1e6:.3f} MHz)")
     p.lossy = {f: p.add(mesh, env, f) for f in mom_freqs}
     if mom_ok:
         p.far_field = p.add(mesh, Environment(wire_conductivity_s_m=None), p.agt_hz, "far_field")
@@ -820,13 +852,15 @@ def _all_checks(spec, sweep: SweepResult, p: _PlannedSolves, solved: _Solved, ag
         l0_notes = [_note("sweep-error", error=float(sweep.inductance_error[i]))]
         if tf.l_sheet is not None:
             l0_notes.append(_note("sheet-without-round-wire", inductance_h=tf.l_sheet))
-        l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, "fitted MoM model (sweep), L0",
-                        _SRC_QS_L, tf.src_hb, notes=l0_notes)
+        l0_row = _check("L0", "H", n, None, None, tf.l_qs, tf.l_hb, None, _SRC_QS_L, tf.src_hb, notes=l0_notes)
+        l0_row = _with_model(l0_row, float(sweep.inductance_h[i]), _SRC_MODEL + ", L0")
         checks.append(_add_circuit([l0_row], circ_l0[i])[0])
+        open_turns = spec.winding.turns - n
         for f in p.frequencies_hz:
-            checks += _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
-                                                     agt_by_tap.get(i) if f == p.agt_hz else None),
-                                   circ_values(f)[i])
+            rows = _add_circuit(_frequency_checks(sweep, i, tf, f, solved.lossy.get(f), solved.lossless.get(f),
+                                                  agt_by_tap.get(i) if f == p.agt_hz else None),
+                                circ_values(f)[i])
+            checks += [_with_open_turn_note(r, open_turns) for r in rows]
         checks += [_add_circuit([r], circ_values(r.frequency_hz)[i])[0] for r in _band_q_checks(spec, sweep, i, tf)]
         checks.append(_add_circuit([_srf_check(spec, sweep, i, solved.srf)], {"SRF": srf_model[i]})[0])
     return checks
@@ -1048,5 +1082,6 @@ def _verdict(sweep: SweepResult, checks, conv, agt_rows, convergence_run: bool, 
     st = _status(everything)
     reasons = tuple(sorted(everything, key=lambda r: -_RANK[r.status]))
     if st == "ok":
-        reasons = (_reason("ok", "all-within", inductance=L_OK, spread=SPREAD_OK, power_balance=AGT_ACCEPT[1] - 1),)
+        reasons = (_reason("ok", "all-within", inductance=L_OK, spread=SPREAD_OK, power_balance=AGT_ACCEPT[1] - 1,
+                           convergence_checked=bool(convergence_run and conv), power_balance_run=bool(agt_rows), mom_run=bool(mom_ok)),)
     return Verdict(st, reasons), tap_verdicts

@@ -276,3 +276,18 @@ def test_couple_uses_the_circuit_currents(small_sweep):
     ok = np.isfinite(r.boost_db)
     assert ok.sum() > 10
     assert np.max(np.abs(db_exact[ok] - r.boost_db[ok])) < 0.01
+
+
+def test_boost_legend_shows_the_magnitude_of_k():
+    # Reversing the rod coil's winding flips both its EMF and M (hence k): in the 2-port
+    # (Z + Z_T) I = −V_oc the radio's voltage is unchanged, so the figure shows |k|.
+    from simloop.coupling import radio_voltage
+    from simloop.report_couple import boost_legend_label
+
+    rod, z11, m, c1, v1, v2 = _case(0.004)
+    zt1, zt2 = 1 / (1j * W0 * c1), 1 / (1j * W0 * 1e-9)
+    z22, z12 = 1j * W0 * L2, 1j * W0 * m
+    same = radio_voltage(z11, z22, -z12, zt1, zt2, v1, -v2)
+    assert same == pytest.approx(radio_voltage(z11, z22, z12, zt1, zt2, v1, v2), rel=1e-12)
+    assert boost_legend_label(9, -0.0045) == "tap 9 (|k| = 0.0045)"
+    assert boost_legend_label(9, 0.0045) == boost_legend_label(9, -0.0045)

@@ -502,3 +502,29 @@ def test_cli_bad_band_exits_2(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "--band" in err and "region-9" in err
     assert "Traceback" not in err
+
+
+def test_bandwidth_without_proximity_is_drawn_above_the_markers(tiny):
+    # The two bandwidths differ by about 1 % (proximity factor of Smith 1972 on this winding):
+    # the dashed line must lie above the channel markers and its legend say by how much.
+    from matplotlib.figure import Figure
+
+    from simloop.plots import _bandwidth_panel, proximity_bandwidth_label, proximity_bandwidth_spread
+
+    spec, sweep = tiny
+    r = run_tune(dataclasses.replace(spec, tuner=range_tuner(1e-9, 12e-9)), sweep)
+    ax = Figure().add_subplot()
+    _bandwidth_panel(ax, r)
+    dashed = [ln for ln in ax.get_lines() if ln.get_gid() == "no-proximity"]
+    markers = [ln for ln in ax.get_lines() if ln.get_linestyle() == "None" and len(ln.get_xdata())]
+    assert dashed and markers
+    assert min(ln.get_zorder() for ln in dashed) > max(ln.get_zorder() for ln in markers)
+    lo, hi = proximity_bandwidth_spread(r)
+    ok = r.covered
+    narrowing = 1 - r.bandwidth_no_proximity_hz[ok] / r.bandwidth_hz[ok]
+    assert 0 < lo <= hi and (lo, hi) == (narrowing.min(), narrowing.max())
+    label = next(t.get_text() for t in ax.get_legend().get_texts() if "proximity" in t.get_text())
+    assert label.startswith("without proximity effect: narrower by ") and "%" in label
+    assert proximity_bandwidth_label((0.0081, 0.0084)) == "without proximity effect: narrower by 0.8%"
+    assert proximity_bandwidth_label((0.02, 0.05), coincide=True) == (
+        "without proximity effect: narrower by 2.0%–5.0%, on the solid line at this scale")
