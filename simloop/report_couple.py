@@ -123,7 +123,8 @@ def format_couple_summary(r: CoupleResult) -> str:
              f"coil {rod.turns} turns, L {rod.inductance_h * 1e6:.0f} µH ({rod.inductance_source}"
              + (f", ±{rod.inductance_error:.0%}" if rod.inductance_error else "") + ")"]
     for i, n in enumerate(r.tap_turns):
-        lines.append(f"tap {n:>3}: M = {r.mutual_inductance_h[i] * 1e6:+.3f} µH, k = {r.coupling_k[i]:+.5f}")
+        # |M| and |k|: their sign only says which way the rod's coil is wound against the loop
+        lines.append(f"tap {n:>3}: |M| = {abs(r.mutual_inductance_h[i]) * 1e6:.3f} µH, |k| = {abs(r.coupling_k[i]):.5f}")
     ok = np.isfinite(r.boost_db)
     if ok.any():
         lines.append(f"boost over the band: {np.nanmin(r.boost_db):.1f} to {np.nanmax(r.boost_db):.1f} dB "
