@@ -590,13 +590,17 @@ def section_validation(result) -> str | None:
 def section_assumptions(result) -> str:
     sw = result.sweep
     items = [
-        "Thin-wire method of moments (PyNEC): wire radius much smaller than the pitch and the segment "
-        f"length. This study used {sw.mesh.n_segments} segments ({esc(sw.mesh.quality)} mesh).",
-        "Direct MoM is trusted only above the low-frequency breakdown floor "
-        f"({sw.mesh.floor_frequency_hz() / 1e6:.3f} MHz for this mesh); below it, values come from a lumped "
-        "model fitted between the floor and 0.6 × self-resonance, and every point carries its error estimate.",
-        "NEC's wire loss is skin effect only; the proximity effect of close-wound turns (Smith 1972) is "
-        "added for Q, bandwidth and tuning.",
+        "The impedance across the band comes from a quasi-static circuit solver of the same wire path "
+        f"(partial element equivalent circuit, Ruehli 1974; {sw.circuit_segments} segments): no "
+        "low-frequency breakdown, no retardation (its error grows as (kD)², D the loop's size), the wires "
+        "as filaments on their axes, radiation only from the path's magnetic moment; every point carries "
+        "its error estimate.",
+        "Thin-wire method of moments (PyNEC) for patterns, ground and the cross-check: wire radius much "
+        f"smaller than the pitch and the segment length; {sw.mesh.n_segments} segments "
+        f"({esc(sw.mesh.quality)} mesh), trusted only above the low-frequency breakdown floor "
+        f"({sw.mesh.floor_frequency_hz() / 1e6:.3f} MHz for this mesh).",
+        "NEC's wire loss is skin effect only; the circuit solver adds the proximity effect of close-wound "
+        "turns (Smith 1972) for Q, bandwidth and tuning.",
         "No dielectric: the frame, coatings and insulation are not modelled, so a real loop self-resonates "
         "somewhat lower than computed.",
         "No receiver loading: a radio coupled to the loop lowers the loaded Q and widens the bandwidth.",
