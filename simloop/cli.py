@@ -514,80 +514,71 @@ def cmd_explore(args) -> int:
     return 0
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="simloop", description=DESCRIPTION, epilog=EPILOG)
-    parser.add_argument("--debug", action="store_true", help="show tracebacks")
-    sub = parser.add_subparsers(dest="command", required=True)
-    # --debug is accepted after the command too; SUPPRESS keeps a global --debug from being reset
-    debug = argparse.ArgumentParser(add_help=False)
-    debug.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks")
+def _add_common_options(p, spec: bool = True) -> None:
+    """Options every solving command takes."""
+    if spec:
+        p.add_argument("spec", help="spec file (TOML)")
+    p.add_argument("--out", help="output folder (default results/<name>/)")
+    p.add_argument("--workers", type=int, default=None, help="solver processes (default: all CPUs)")
+    p.add_argument("--z0", default="50 ohm",
+                   help="Touchstone reference impedance, e.g. 50ohm or 75Ω (a bare number is ohms; "
+                        "default 50 ohm)")
+    p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
+    p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    p.add_argument("--keep-going", action="store_true",
+                   help="exit 0 although some MoM solves failed (they are still recorded and reported)")
 
-    def common(p, spec=True):
-        if spec:
-            p.add_argument("spec", help="spec file (TOML)")
-        p.add_argument("--out", help="output folder (default results/<name>/)")
-        p.add_argument("--workers", type=int, default=None, help="solver processes (default: all CPUs)")
-        p.add_argument("--z0", default="50 ohm",
-                       help="Touchstone reference impedance, e.g. 50ohm or 75Ω (a bare number is ohms; "
-                            "default 50 ohm)")
-        p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
-        p.add_argument("--quiet", action="store_true", help="print nothing but errors")
-        p.add_argument("--keep-going", action="store_true",
-                       help="exit 0 although some MoM solves failed (they are still recorded and reported)")
 
+def _add_tune_options(p) -> None:
+    p.add_argument("--band", default="itu-1",
+                   help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
+    p.add_argument("--field", default="1 mV/m",
+                   help="incident field strength for the tuner voltage, with its unit: 1mV/m, "
+                        "50uV/m, 0.01V/m (a bare number is V/m; default 1 mV/m)")
+
+
+def _add_study_options(p) -> None:
+    _add_tune_options(p)
+    p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
+    p.add_argument("--format", choices=("text", "json"), default="text",
+                   help="summary on stdout: short text, or JSON for scripts")
+
+
+def _add_single_commands(sub, debug) -> None:
+    """check, sweep, tune, validate, couple and pattern."""
     p = sub.add_parser("check", parents=[debug], help="build the mesh and print the mesh report")
     p.add_argument("spec")
     p.set_defaults(func=cmd_check)
     p = sub.add_parser("sweep", parents=[debug], help="tap impedances over the sweep; JSON, CSV, Touchstone, plot")
-    common(p)
+    _add_common_options(p)
     p.add_argument("--direct", action="store_true",
                    help="solve every point directly, below the breakdown floor too (flagged unreliable)")
     p.set_defaults(func=cmd_sweep)
-    def tune_options(p):
-        p.add_argument("--band", default="itu-1",
-                       help="band plan: itu-1, itu-2, itu-3 or START:STOP:STEP (e.g. 530k:1700k:10k)")
-        p.add_argument("--field", default="1 mV/m",
-                       help="incident field strength for the tuner voltage, with its unit: 1mV/m, "
-                            "50uV/m, 0.01V/m (a bare number is V/m; default 1 mV/m)")
-
     p = sub.add_parser("tune", parents=[debug], help="band coverage per tap, channel tuning chart, bandwidth, tuner voltage")
-    common(p)
-    tune_options(p)
+    _add_common_options(p)
+    _add_tune_options(p)
     p.set_defaults(func=cmd_tune)
-    p = sub.add_parser("validate", parents=[debug], help="MoM against handbook formulas and the quasi-static model")
-    common(p)
+    p = sub.add_parser("validate", parents=[debug], help="solvers against handbook formulas and the quasi-static model")
+    _add_common_options(p)
     p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
     p.set_defaults(func=cmd_validate)
-
-    def study_options(p):
-        tune_options(p)
-        p.add_argument("--no-convergence", action="store_true", help="skip the mesh-convergence reruns")
-        p.add_argument("--format", choices=("text", "json"), default="text",
-                       help="summary on stdout: short text, or JSON for scripts")
-
     p = sub.add_parser("couple", parents=[debug], help="loop-to-radio coupling: boost, placement map, 2-port")
-    common(p)
-    tune_options(p)
+    _add_common_options(p)
+    _add_tune_options(p)
     p.add_argument("--tap", type=int, default=None, help="tap (in turns) for the single-frequency studies")
     p.add_argument("--frequency", default=None,
                    help='frequency of the capacitor, distance and placement studies, e.g. "1 MHz" '
                         "(default: the channel nearest 1 MHz)")
     p.set_defaults(func=cmd_couple)
-
     p = sub.add_parser("pattern", parents=[debug],
                        help="receive patterns of the loop (and the radio's rod), their nulls and what fills them")
-    common(p)
+    _add_common_options(p)
     p.set_defaults(func=cmd_pattern)
 
-    p = sub.add_parser("study", parents=[debug],
-                       help="sweep, tune, validate, couple and pattern in one pass; all outputs plus report.html")
-    common(p)
-    study_options(p)
-    p.set_defaults(func=cmd_study)
-    p = sub.add_parser("demo", parents=[debug], help="the study of the bundled demo loop into results/demo/")
-    common(p, spec=False)
-    study_options(p)
-    p.set_defaults(func=cmd_demo)
+
+def _add_explore_command(sub, debug) -> None:
+    from simloop.explore import OBJECTIVES
+
     p = sub.add_parser("explore", parents=[debug], help="vary spec keys: one sweep and tune per design, in parallel")
     p.add_argument("spec", help="base spec file (TOML)")
     p.add_argument("--vary", action="append", required=True, metavar="KEY=RANGE",
@@ -595,8 +586,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=None,
                    help="a Latin-hypercube sample of N designs instead of the full grid")
     p.add_argument("--seed", type=int, default=0, help="seed of the sample (default 0)")
-    from simloop.explore import OBJECTIVES
-
     p.add_argument("--objective", choices=list(OBJECTIVES), default="coverage",
                    help="rank designs by: " + "; ".join(f"{k}: {v[1]}" for k, v in OBJECTIVES.items()))
     p.add_argument("--band", default="itu-1", help="band plan, as for tune")
@@ -607,6 +596,26 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-cache", action="store_true", help="do not re-use or store solves")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.set_defaults(func=cmd_explore)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="simloop", description=DESCRIPTION, epilog=EPILOG)
+    parser.add_argument("--debug", action="store_true", help="show tracebacks")
+    sub = parser.add_subparsers(dest="command", required=True)
+    # --debug is accepted after the command too; SUPPRESS keeps a global --debug from being reset
+    debug = argparse.ArgumentParser(add_help=False)
+    debug.add_argument("--debug", action="store_true", default=argparse.SUPPRESS, help="show tracebacks")
+    _add_single_commands(sub, debug)
+    p = sub.add_parser("study", parents=[debug],
+                       help="sweep, tune, validate, couple and pattern in one pass; all outputs plus report.html")
+    _add_common_options(p)
+    _add_study_options(p)
+    p.set_defaults(func=cmd_study)
+    p = sub.add_parser("demo", parents=[debug], help="the study of the bundled demo loop into results/demo/")
+    _add_common_options(p, spec=False)
+    _add_study_options(p)
+    p.set_defaults(func=cmd_demo)
+    _add_explore_command(sub, debug)
     return parser
 
 
