@@ -306,11 +306,29 @@ def chart_table(r: TuneResult) -> list[str]:
 
 def format_tune_summary(r: TuneResult) -> str:
     """A short human summary: coverage per tap, gaps, suggested taps, audio-cut channels."""
-    lines = []
     f = r.frequencies_hz
-    lines.append(f"{r.name}: {r.band.name} band, {f.size} channels {_span(f[0], f[-1])} every "
-                 f"{r.band.spacing_hz / 1e3:g} kHz")
-    lines.append(f"tuner: {r.tuner.describe(r.imperial)}")
+    lines = [f"{r.name}: {r.band.name} band, {f.size} channels {_span(f[0], f[-1])} every "
+             f"{r.band.spacing_hz / 1e3:g} kHz", f"tuner: {r.tuner.describe(r.imperial)}"]
+    lines += _summary_coverage(r) + _summary_channels(r) + _summary_model_error(r)
+    ok = r.covered
+    # The short chart: the same channels as the table in tuning.png.
+    if np.any(ok):
+        lines.append("chart (the same channels as in tuning.png; every channel in tuning.csv):")
+        lines.extend("  " + row for row in chart_table(r))
+    for n in r.notes:
+        lines.append(f"note: {n}")
+    if r.imperial and r.tuner.has_position:
+        lines.append("slide positions are in inches (the spec is written in inches); "
+                     "slide-scale.svg / slide-scale.png print the scale 1:1")
+    for c in r.cautions:
+        lines.append(f"CAUTION: {c}")
+    return "\n".join(lines)
+
+
+def _summary_coverage(r: TuneResult) -> list[str]:
+    """Per tap what it covers and where it is used; gaps; suggested taps."""
+    f = r.frequencies_hz
+    lines = []
     for i, n in enumerate(r.tap_turns):
         used = int(np.sum(r.channel_tap_index == i))
         lo, hi = r.f_low_hz[i], r.f_high_hz[i]
@@ -337,6 +355,13 @@ def format_tune_summary(r: TuneResult) -> str:
         lines.append(f"suggested taps ({s.margin:.0%} overlap margin, estimate): {cov}")
         for p in s.problems:
             lines.append(f"  taps alone cannot fix: {p}")
+    return lines
+
+
+def _summary_channels(r: TuneResult) -> list[str]:
+    """Loaded Q, bandwidth against the audio, the proximity effect's share, trust, tuner voltage."""
+    f = r.frequencies_hz
+    lines = []
     ok = r.covered
     if np.any(ok):
         n_cut = int(np.sum(r.audio_cut))
@@ -359,6 +384,12 @@ def format_tune_summary(r: TuneResult) -> str:
         lines.append(f"at {r.field_v_per_m * 1e3:g} mV/m: up to {r.voltage_v[j] * 1e3:.3g} mV across the "
                      f"tuner ({_khz(f[j])} kHz), capacitor current up to "
                      f"{np.nanmax(r.current_a[ok]) * 1e6:.3g} µA")
+    return lines
+
+
+def _summary_model_error(r: TuneResult) -> list[str]:
+    """The lumped model against held-back exact circuit solves and MoM points."""
+    lines = []
     h = r.model_error
     if h is not None and h.circuit_hz.size:
         errs = ", ".join(f"tap {n} {h.circuit_max_relative_error[i]:.2%} (R {h.circuit_max_resistance_error[i]:.1%})"
@@ -375,15 +406,4 @@ def format_tune_summary(r: TuneResult) -> str:
     else:
         lines.append(f"model vs MoM: the {h.excluded_hz.size} held-back points lie below the MoM floor; "
                      "no comparison")
-    # The short chart: the same channels as the table in tuning.png.
-    if np.any(ok):
-        lines.append("chart (the same channels as in tuning.png; every channel in tuning.csv):")
-        lines.extend("  " + row for row in chart_table(r))
-    for n in r.notes:
-        lines.append(f"note: {n}")
-    if r.imperial and r.tuner.has_position:
-        lines.append("slide positions are in inches (the spec is written in inches); "
-                     "slide-scale.svg / slide-scale.png print the scale 1:1")
-    for c in r.cautions:
-        lines.append(f"CAUTION: {c}")
-    return "\n".join(lines)
+    return lines
