@@ -84,3 +84,12 @@ def small_stacked(tmp_path):
 @pytest.fixture
 def small_spiral(tmp_path):
     return write_spec(tmp_path, SMALL_SPIRAL, "small-spiral.toml")
+
+
+def process_is_gone(pid: int) -> bool:
+    """True when the process has ended (a zombie nobody reaps counts as ended); Linux /proc."""
+    try:
+        with open(f"/proc/{pid}/status") as fh:
+            return any(line.startswith("State:") and "Z" in line.split()[1] for line in fh)
+    except FileNotFoundError:
+        return True

@@ -28,7 +28,7 @@ from simloop.cli import main
 from simloop.impedance import run_sweep
 from simloop.solve import SolveCache
 from simloop.spec import load
-from tests.conftest import SMALL_STACKED, write_spec
+from tests.conftest import SMALL_STACKED, write_spec, process_is_gone
 
 ROOT = Path(__file__).resolve().parents[1]
 _real_solve = solve_mod._solve_plan
@@ -38,12 +38,6 @@ def _env(**extra) -> dict:
     return dict(os.environ, PYTHONPATH=str(ROOT), OPENBLAS_NUM_THREADS="1", **extra)
 
 
-def _is_gone(pid: int) -> bool:
-    try:
-        with open(f"/proc/{pid}/status") as fh:
-            return any(line.startswith("State:") and "Z" in line.split()[1] for line in fh)
-    except FileNotFoundError:
-        return True
 
 
 def _wait_for(predicate, seconds: float = 120.0) -> bool:
@@ -356,7 +350,7 @@ def test_a_signal_stops_the_workers_and_exits_with_one_line(tmp_path, sig, statu
     lines = err.decode().strip().splitlines()
     assert proc.returncode == status
     assert len(lines) == 1 and "Traceback" not in err.decode(), err.decode()
-    assert _wait_for(lambda: all(_is_gone(p) for p in workers), 10), "workers outlived the run"
+    assert _wait_for(lambda: all(process_is_gone(p) for p in workers), 10), "workers outlived the run"
 
 
 def test_a_closed_output_pipe_is_quiet(tmp_path):

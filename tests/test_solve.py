@@ -23,6 +23,7 @@ from simloop.geometry import build_loop
 from simloop.mesh import build_mesh
 from simloop.reference import inductance_partial_sum
 from simloop.solve import Environment, SolveCache, solve_ports, validate_payload
+from tests.conftest import process_is_gone
 
 
 def small_mesh_geometry():
@@ -114,13 +115,6 @@ def test_only_stale_temporary_files_are_cleaned(tmp_path):
     assert not old.exists()
 
 
-def _is_gone(pid: int) -> bool:
-    """True when the process has ended (a zombie nobody reaps counts as ended)."""
-    try:
-        with open(f"/proc/{pid}/status") as fh:
-            return any(line.startswith("State:") and "Z" in line.split()[1] for line in fh)
-    except FileNotFoundError:
-        return True
 
 
 def test_each_solve_is_stored_the_moment_it_arrives(small_mesh, tmp_path):
@@ -226,6 +220,6 @@ def test_workers_do_not_outlive_a_killed_parent(tmp_path, sig):
     proc.send_signal(sig)
     proc.wait(timeout=30)
     deadline = time.monotonic() + 10
-    while not all(_is_gone(p) for p in pids) and time.monotonic() < deadline:
+    while not all(process_is_gone(p) for p in pids) and time.monotonic() < deadline:
         time.sleep(0.1)
-    assert all(_is_gone(p) for p in pids), "worker processes outlived their parent"
+    assert all(process_is_gone(p) for p in pids), "worker processes outlived their parent"
