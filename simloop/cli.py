@@ -185,10 +185,8 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
         for i, n in enumerate(result.tap_turns):
             srf = result.self_resonance_hz[i]
             ok = int(result.reliable[:, i].sum())
-            kappa = result.junction_correction[i]
-            fix = f", junction-corrected {kappa - 1:+.1%}" if kappa != 1.0 else ""
             print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error[i]:.1%} "
-                  f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH{fix}), "
+                  f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH), "
                   f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
         counts = {s: int((result.source == s).sum()) for s in ("circuit", "mom", "model")}
         print(", ".join(f"{n} points from {s}" for s, n in counts.items() if n)
