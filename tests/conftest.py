@@ -23,6 +23,23 @@ def _session_cache(tmp_path_factory):
 USER_OUTPUT_FORBIDDEN = ("REFER" + "ENCES", "DES" + "IGN", "[mem]", "from memory")
 
 
+def receiver_table(position: str, axis: str | None = "[0, 1, 0]", *, rod_length: str = "100 mm",
+                   permeability: int = 125, coil_turns: int = 65, coil_length: str = "20 mm") -> str:
+    """A ``[receiver]`` table (a portable radio's ferrite rod, invented typical values) at
+    ``position`` (a TOML array of lengths) with ``axis`` (a TOML array; None: the default axis)."""
+    text = f"""
+[receiver]
+rod_length = "{rod_length}"
+rod_diameter = "10 mm"
+permeability = {permeability}
+coil_turns = {coil_turns}
+coil_length = "{coil_length}"
+loaded_q = 60
+position = {position}
+"""
+    return text + (f"axis = {axis}\n" if axis is not None else "")
+
+
 def write_spec(directory: Path, text: str, name: str = "spec.toml") -> Path:
     path = Path(directory) / name
     path.write_text(textwrap.dedent(text))

@@ -12,7 +12,7 @@ import textwrap
 import pytest
 
 from simloop.cli import main
-from tests.conftest import SMALL_STACKED, write_spec
+from tests.conftest import SMALL_STACKED, write_spec, receiver_table
 
 BAD = [
     # (key expected in the message, old text, new text) applied to the small stacked spec
@@ -49,17 +49,7 @@ def test_spiral_whose_inner_turn_collapses(tmp_path, capsys):
 
 
 def test_rod_through_the_winding(tmp_path, capsys):
-    text = textwrap.dedent(SMALL_STACKED) + textwrap.dedent("""
-        [receiver]
-        rod_length = "100 mm"
-        rod_diameter = "10 mm"
-        permeability = 125
-        coil_turns = 65
-        coil_length = "20 mm"
-        loaded_q = 60
-        position = ["0.25 m", "0 m", "0 m"]
-        axis = [0, 0, 1]
-    """)
+    text = textwrap.dedent(SMALL_STACKED) + receiver_table('["0.25 m", "0 m", "0 m"]', "[0, 0, 1]")
     spec = write_spec(tmp_path, text)
     assert main(["check", str(spec)]) == 2
     err = capsys.readouterr().err

@@ -20,6 +20,7 @@ from simloop.geometry import build_loop
 from simloop.receiver import build_rod
 
 from .conftest import SMALL_STACKED, write_spec
+from tests.conftest import receiver_table
 
 F0 = 1e6
 W0 = 2 * np.pi * F0
@@ -136,15 +137,8 @@ RECEIVER = """
 kind = "range"
 min = "20 pF"
 max = "5000 pF"
-[receiver]
-rod_length = "80 mm"
-rod_diameter = "10 mm"
-permeability = 200
-coil_turns = 60
-coil_length = "15 mm"
-loaded_q = 60
-position = ["0 m", "0.22 m", "-0.20 m"]
-"""
+""" + receiver_table('["0 m", "0.22 m", "-0.20 m"]', None, rod_length="80 mm", permeability=200, coil_turns=60,
+                     coil_length="15 mm")
 
 
 def test_couple_command_end_to_end(tmp_path):

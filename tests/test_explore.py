@@ -25,7 +25,7 @@ from simloop.cli import main, parse_vary
 from simloop.errors import SpecError
 from simloop.explore import (design_hash, designs_grid, designs_sample, dump_toml, evaluate_design,
                              pareto_front, solve_budget)
-from tests.conftest import write_spec
+from tests.conftest import write_spec, receiver_table
 
 TINY = """
 name = "tiny"
@@ -282,16 +282,7 @@ def test_unreachable_scheduler_exits_2(tmp_path, capsys):
     assert "--scheduler" in capsys.readouterr().err
 
 
-RECEIVER = """
-[receiver]
-rod_length = "100 mm"
-rod_diameter = "10 mm"
-permeability = 125
-coil_turns = 60
-coil_length = "20 mm"
-loaded_q = 60
-position = ["0 m", "0.15 m", "-0.125 m"]
-"""
+RECEIVER = receiver_table('["0 m", "0.15 m", "-0.125 m"]', None, coil_turns=60)
 
 
 def test_boost_columns_only_with_a_receiver(tmp_path, capsys):

@@ -14,20 +14,10 @@ from simloop import patterns as P
 from simloop.cli import main
 from simloop.errors import SolverError
 from simloop.solve import Environment, FarField, PortCurrents, PortSources, SolvePlan, far_field_solution, solve_plans
-from tests.conftest import SMALL_STACKED, write_spec
+from tests.conftest import SMALL_STACKED, receiver_table, write_spec
 from tests.test_solve_plan import square_loop
 
-RECEIVER_AND_PATTERN = """
-[receiver]
-rod_length = "100 mm"
-rod_diameter = "10 mm"
-permeability = 125
-coil_turns = 65
-coil_length = "20 mm"
-loaded_q = 60
-position = ["0 m", "0.25 m", "-0.20 m"]
-axis = [1, 1, 0]
-[pattern]
+RECEIVER_AND_PATTERN = receiver_table('["0 m", "0.25 m", "-0.20 m"]', "[1, 1, 0]") + """[pattern]
 frequency = "1.5 MHz"
 elevation = ["0 deg", "30 deg"]
 """

@@ -28,7 +28,7 @@ from simloop.cli import main
 from simloop.impedance import run_sweep
 from simloop.solve import SolveCache
 from simloop.spec import load
-from tests.conftest import SMALL_STACKED, write_spec, process_is_gone
+from tests.conftest import SMALL_STACKED, write_spec, process_is_gone, receiver_table
 
 ROOT = Path(__file__).resolve().parents[1]
 _real_solve = solve_mod._solve_plan
@@ -300,17 +300,8 @@ def test_toml_nested_thousands_deep_exits_2(tmp_path, capsys):
 
 @pytest.mark.parametrize("axis", ["1e-320, 0, 0", "1e308, 1e308, 0"])
 def test_an_extreme_receiver_axis_still_meets_the_rod_check(tmp_path, capsys, axis):
-    text = textwrap.dedent(SMALL_STACKED) + textwrap.dedent(f"""
-        [receiver]
-        rod_length = "100 mm"
-        rod_diameter = "10 mm"
-        permeability = 125
-        coil_turns = 65
-        coil_length = "20 mm"
-        loaded_q = 60
-        position = ["0.25 m", "0 m", "0 m"]
-        axis = [{axis}]
-    """)  # the rod is centred on the right-hand side of the winding: it crosses the wire
+    # the rod is centred on the right-hand side of the winding: it crosses the wire
+    text = textwrap.dedent(SMALL_STACKED) + receiver_table('["0.25 m", "0 m", "0 m"]', f"[{axis}]")
     spec_path = write_spec(tmp_path, text)
     assert main(["check", str(spec_path)]) == 2
     assert "receiver.position" in capsys.readouterr().err

@@ -10,7 +10,8 @@ printing gives at least the expected number of pages.
 with the reason, except under ``CI=true``, where a missing browser fails.
 
 Sources: the PDF page-object convention (``/Type /Page``, ISO 32000-1:2008, sec. 7.7.3.3) for
-counting printed pages; the rest are properties of the page itself, no published values.
+counting printed pages; the rest are properties of the page itself (common practice for a
+browser smoke test), no published values.
 """
 
 from __future__ import annotations

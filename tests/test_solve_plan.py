@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from simloop import patterns as P
-from simloop.mesh import C0, Mesh
+from simloop.mesh import Mesh
 from simloop.solve import (Environment, FarField, FuturesExecutor, NearFieldH, PlaneWaves, PortCurrents,
                            PortSources, SegmentCurrents, SolveCache, SolvePlan, far_field_solution, solve_plans,
                            solve_ports)

@@ -26,7 +26,7 @@ from simloop.report_plots import (boost_figure, coverage_figure, length_text, lo
 from simloop.plot_style import report_style
 from simloop.spec import load
 from simloop.studies import SolveLogEntry, run_study
-from tests.conftest import write_spec
+from tests.conftest import write_spec, receiver_table
 
 SMALL_IMPERIAL = """
 name = "small-imperial"
@@ -352,17 +352,7 @@ def test_a_failed_pattern_stage_leaves_the_rest(tmp_path, monkeypatch, capsys):
 
 def test_study_refuses_bad_receiver_placement_before_solving(tmp_path, capsys):
     """A radio whose rod passes through the winding is a spec error before any solve."""
-    text = SMALL_IMPERIAL + """
-[receiver]
-rod_length = "100 mm"
-rod_diameter = "10 mm"
-permeability = 125
-coil_turns = 65
-coil_length = "20 mm"
-loaded_q = 60
-position = ["0 m", "0 m", "-8 in"]
-axis = [0, 1, 0]
-"""
+    text = SMALL_IMPERIAL + receiver_table('["0 m", "0 m", "-8 in"]')
     out = tmp_path / "out"
     assert main(["study", str(write_spec(tmp_path, text)), "--out", str(out), "--no-cache"]) == 2
     assert "receiver" in capsys.readouterr().err
