@@ -849,7 +849,10 @@ def summary_dict(result, out: Path | None = None) -> dict:
 def format_summary(result, out: Path | None = None) -> str:
     """A few lines for the terminal: coverage, gaps, verdict, where the report is."""
     d = summary_dict(result, out)
-    lines = [f"{d['name']}: study done in {d['seconds']:.0f} s"]
+    s = d.get("solves")
+    budget = (f" (solve budget: {sum(s['factorisations'].values())} MoM factorisations, "
+              f"{s['repeated']} repeated)" if s else "")
+    lines = [f"{d['name']}: study done in {d['seconds']:.0f} s{budget}"]
     for c in d.get("coverage", []):
         if c["f_low_hz"] is None or c["f_high_hz"] is None:
             lines.append(f"  tap {c['tap']:>3}: cannot be tuned with this capacitor")
