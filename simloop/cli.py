@@ -180,22 +180,27 @@ def cmd_sweep(args, spec=None, sweep=None) -> int:
 
     given = sweep is not None
     spec, out, result = _spec_out_sweep(args, spec, sweep)
-    paths = write_sweep(result, out, z0=args.z0)
-    if not args.quiet:
-        for i, n in enumerate(result.tap_turns):
-            srf = result.self_resonance_hz[i]
-            ok = int(result.reliable[:, i].sum())
-            print(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error[i]:.1%} "
-                  f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH), "
-                  f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
-        counts = {s: int((result.source == s).sum()) for s in ("circuit", "mom", "model")}
-        print(", ".join(f"{n} points from {s}" for s, n in counts.items() if n)
-              + f" ({result.circuit_segments}-segment circuit, reduced-model error "
-              f"{result.circuit_rom_error:.1e}; {len(result.solves)} direct MoM solves)")
-        if result.window_note:
-            print(f"note: {result.window_note}")
-        print(f"wrote {len(paths)} files to {out}/")
-    return 0 if given else _solve_failures(args, result)
+    return _publish(args, out, "sweep", spec, lambda stage: write_sweep(result, stage, z0=args.z0),
+                    lambda: _sweep_summary(result), result, given,
+                    info={"reference_impedance_ohm": args.z0})
+
+
+def _sweep_summary(result) -> str:
+    """Per tap L0, its error and self-resonance, and where the points came from."""
+    lines = []
+    for i, n in enumerate(result.tap_turns):
+        srf = result.self_resonance_hz[i]
+        ok = int(result.reliable[:, i].sum())
+        lines.append(f"tap {n:>3}: L0 = {result.inductance_h[i] * 1e6:8.2f} µH ± {result.inductance_error[i]:.1%} "
+                     f"(quasi-static {result.quasi_static_inductance_h[i] * 1e6:.2f} µH), "
+                     f"self-resonance {srf / 1e6:.3f} MHz, {ok}/{result.frequencies_hz.size} points reliable")
+    counts = {s: int((result.source == s).sum()) for s in ("circuit", "mom", "model")}
+    lines.append(", ".join(f"{n} points from {s}" for s, n in counts.items() if n)
+                 + f" ({result.circuit_segments}-segment circuit, reduced-model error "
+                 f"{result.circuit_rom_error:.1e}; {len(result.solves)} direct MoM solves)")
+    if result.window_note:
+        lines.append(f"note: {result.window_note}")
+    return "\n".join(lines)
 
 
 def _tune_options(args):
@@ -208,12 +213,13 @@ def _tune_options(args):
     return band, parse_option(args.field, "field", "--field")
 
 
-def _publish(args, out, command: str, spec, write, summary, sweep, given: bool) -> int:
+def _publish(args, out, command: str, spec, write, summary, sweep, given: bool, info: dict | None = None) -> int:
     """Write one command's outputs as one set (``write(folder)``), print ``summary()`` unless quiet,
-    and report failed solves of a sweep this command ran itself (``given``: the caller's sweep)."""
+    and report failed solves of a sweep this command ran itself (``given``: the caller's sweep).
+    ``info`` joins the set's entry in the manifest."""
     from simloop.report import output_set
 
-    with output_set(out, command, {"name": spec.name}) as (stage, paths):
+    with output_set(out, command, {"name": spec.name, **(info or {})}) as (stage, paths):
         write(stage)
     if not args.quiet:
         print(summary())

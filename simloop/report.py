@@ -293,18 +293,22 @@ def sweep_dict(result: SweepResult, z0: float) -> dict:
 def write_sweep(result: SweepResult, out: Path, z0: float = 50.0) -> list[Path]:
     """Write sweep.json, tap-<n>.s1p, taps.s<k>p, impedance.csv and impedance.png into ``out``.
 
-    The files are written as one set (:func:`output_set`): a failure or a kill while writing
-    leaves the previous set untouched, and tap files of an earlier run with other taps go.
+    A plain writer, like the other commands' writers: the command line stages every command's
+    files into one set with :func:`output_set` (so a study that writes these beside its other
+    outputs gets one set, not a set inside a set).
     """
-    with output_set(out, "sweep", {"name": result.name, "reference_impedance_ohm": z0}) as (stage, written):
-        write_json(stage / "sweep.json", sweep_dict(result, z0))
-        for i, n in enumerate(result.tap_turns):
-            result.tap_network(i, z0).write_touchstone(filename=f"tap-{n}", dir=str(stage), skrf_comment=False)
-        result.to_network(z0).write_touchstone(filename="taps", dir=str(stage), skrf_comment=False)
-        _write_impedance_csv(result, stage / "impedance.csv")
-        from simloop.plots import plot_impedance
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    written = [write_json(out / "sweep.json", sweep_dict(result, z0))]
+    for i, n in enumerate(result.tap_turns):
+        result.tap_network(i, z0).write_touchstone(filename=f"tap-{n}", dir=str(out), skrf_comment=False)
+        written.append(out / f"tap-{n}.s1p")
+    k = len(result.tap_turns)
+    result.to_network(z0).write_touchstone(filename="taps", dir=str(out), skrf_comment=False)
+    written += [out / f"taps.s{k}p", _write_impedance_csv(result, out / "impedance.csv")]
+    from simloop.plots import plot_impedance
 
-        plot_impedance(result, stage / "impedance.png")
+    written.append(plot_impedance(result, out / "impedance.png"))
     return written
 
 
