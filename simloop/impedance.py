@@ -607,7 +607,7 @@ def _assemble(f_sweep, circ: CircuitStage, solved: dict, eps_c, eps_m, direct: b
 
 
 def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = None,
-              progress=None, direct: bool = False, correct_junctions: bool = True) -> SweepResult:
+              progress=None, direct: bool = False) -> SweepResult:
     """Sweep the impedance of every tap of a loop spec.
 
     Stages: plan the coverage (:func:`plan_sources`); the circuit solver over the whole band
@@ -627,9 +627,6 @@ def run_sweep(spec, *, workers: int | None = None, cache: SolveCache | None = No
     direct : bool
         Solve every sweep point directly with the MoM, below its floor too, and report those (for
         studies of the breakdown; such points carry the breakdown error and are flagged).
-    correct_junctions : bool
-        Kept for callers; the circuit solver needs no junction correction (taps are node pairs),
-        and the NEC junction bias is measured against it instead (``mom_difference``).
     """
     geom, mesh, rules = prepare(spec)
     env = environment_from_spec(spec)

@@ -91,27 +91,6 @@ def _general_exact(a0, a1, b0, b1):
     return reference._general_neumann(A0, U, np.where(swap, lb, la), B0, B1, V, np.where(swap, la, lb))
 
 
-def raw_integrals(starts, ends, i, j, radius_m, skip_perpendicular=False):
-    r"""∫∫ ds dt / R between pieces i[n] and j[n], shape (n,). [m]
-
-    Parameters
-    ----------
-    starts, ends : ndarray, shape (m, 3)
-        Piece end points. [m]
-    i, j : ndarray of int
-        Pair indices.
-    radius_m : float
-        Wire radius (distance used for collinear pieces and self terms). [m]
-    skip_perpendicular : bool
-        Return 0 for perpendicular pairs (their partial mutual inductance is 0 anyway).
-    """
-    out = np.zeros(i.size)
-    for c in range(0, i.size, _CHUNK):
-        ii, jj = i[c:c + _CHUNK], j[c:c + _CHUNK]
-        out[c:c + _CHUNK] = _raw_chunk(starts, ends, ii, jj, radius_m, skip_perpendicular)
-    return out
-
-
 def _raw_chunk(starts, ends, i, j, radius, skip_perpendicular):
     a0, a1, b0, b1 = starts[i], ends[i], starts[j], ends[j]
     u, la = _unit(a0, a1)

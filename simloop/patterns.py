@@ -720,9 +720,6 @@ def _unit3(v) -> np.ndarray:
 # The pattern study
 # ------------------------------------------------------------------------------------------------
 
-#: Far-field grid step for the MoM solve (the receive response between grid points is
-#: interpolated; 90/step must be whole). [deg]
-FAR_FIELD_STEP_DEG = 2.0
 #: Azimuth step of the coarse grid the nulls are refined from, and of the output. [deg]
 AZIMUTH_STEP_DEG = 1.0
 

@@ -85,21 +85,6 @@ def _k_nodes():
     return k, wk, special.j1(k) ** 2
 
 
-def disc_field_g(u) -> np.ndarray:
-    r"""g(u) = ∫ J1(k)² e^(−ku)/k dk: axial field of a charged disc (σ = 1) averaged over a coaxial
-    disc of the same radius at axial distance u (in radii). [-]"""
-    u = np.abs(np.asarray(u, dtype=float))
-    k, wk, j2 = _k_nodes()
-    out = np.empty(u.shape)
-    flat = u.ravel()
-    res = out.ravel()
-    for s in range(0, flat.size, 2048):
-        uu = flat[s:s + 2048, None]
-        res[s:s + 2048] = (j2 / k * np.exp(-k * uu)) @ wk
-    tail = special.expn(2, _K_MAX * u) / (np.pi * _K_MAX)   # ∫_K^∞ e^(−ku)/(πk²) dk
-    return res.reshape(u.shape) + tail
-
-
 def disc_field_integral_G(u) -> np.ndarray:
     r"""G(u) = ∫0^u g = ∫ J1(k)² (1 − e^(−ku))/k² dk (u in radii). [-]"""
     u = np.abs(np.asarray(u, dtype=float))

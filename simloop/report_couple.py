@@ -22,10 +22,6 @@ CAUTION = ("Safety: keep any outdoor wire well away from power lines and follow 
            "lightning protection and grounding.")
 
 
-def _f(x):
-    return float(x)
-
-
 def _rod_dict(r: CoupleResult) -> dict:
     rod = r.rod
     return {

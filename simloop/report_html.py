@@ -80,12 +80,6 @@ def esc(value) -> str:
     return html.escape(str(value), quote=True)
 
 
-def _fmt(value, digits: int = 4) -> str:
-    if value is None or (isinstance(value, float) and not math.isfinite(value)):
-        return "–"
-    return f"{value:.{digits}g}"
-
-
 def _cell(text: str, trusted: bool = True, cls: str = "") -> str:
     classes = " ".join(c for c in (cls, "" if trusted else "untrusted") if c)
     return f'<td class="{classes}">{text}</td>' if classes else f"<td>{text}</td>"
@@ -744,7 +738,6 @@ def write_report(result, out: Path) -> Path:
 # ------------------------------------------------------------------------------------------------
 # Summary for scripts and the terminal
 # ------------------------------------------------------------------------------------------------
-
 
 
 def summary_tune(result) -> dict | None:
